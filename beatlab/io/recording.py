@@ -1,0 +1,138 @@
+"""The :class:`Recording`: a time-lapse with its physical metadata and lazy frame access."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from typing import Protocol
+
+import numpy as np
+
+from beatlab.errors import InputError, MetadataError
+
+__all__ = ["Recording", "FrameSource", "KINDS"]
+
+#: What the pixel values are: OPD in nm, phase in radians, raw camera counts.
+KINDS = ("opd", "phase", "hologram")
+
+_FLAGS = {
+    "fps": ("--fps HZ", "frame rate"),
+    "pixel_size_um": ("--pixel-size-um UM", "sample-plane pixel size"),
+    "wavelength_nm": ("--wavelength-nm NM", "wavelength"),
+}
+
+
+class FrameSource(Protocol):
+    """What a reader gives a :class:`Recording`: a frame count, a frame shape, and slices."""
+
+    n_frames: int
+    frame_shape: tuple[int, int]
+    dtype: np.dtype
+
+    def read(self, start: int, stop: int) -> np.ndarray:
+        """Return frames ``start:stop`` as an array (n, Y, X) (a view of a memory map if possible)."""
+        ...
+
+
+@dataclass
+class Recording:
+    """A phase, OPD or hologram time-lapse with physical metadata and lazy frame access.
+
+    Frames are read on demand (memory-mapped where the file allows it), so a recording of any
+    length costs little memory until frames are used. Obtain one with
+    :func:`beatlab.open_recording`.
+
+    Attributes
+    ----------
+    source : str
+        Where the frames come from.
+    kind : {'opd', 'phase', 'hologram'}
+        What the pixel values are.
+    n_frames : int
+        Number of frames.
+    shape : tuple of int
+        Frame shape (Y, X) in pixels.
+    fps : float or None
+        Frame rate in Hz (1 / median frame interval when timestamps are uneven).
+    times_s : ndarray (T,) or None
+        Frame times in seconds from the first frame.
+    pixel_size_um : float or None
+        Sample-plane pixel size in micrometres.
+    wavelength_nm : float or None
+        Illumination wavelength in nm.
+    metadata : dict
+        What was found in the file and where each value came from.
+    """
+
+    source: str
+    kind: str
+    frames: FrameSource = field(repr=False)
+    fps: float | None
+    times_s: np.ndarray | None = field(repr=False)
+    pixel_size_um: float | None
+    wavelength_nm: float | None
+    metadata: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.frames.n_frames)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return tuple(int(s) for s in self.frames.frame_shape)
+
+    @property
+    def dtype(self) -> np.dtype:
+        return np.dtype(self.frames.dtype)
+
+    @property
+    def duration_s(self) -> float | None:
+        """Time from the first frame to one interval after the last, in seconds."""
+        if self.times_s is None or self.fps is None:
+            return None
+        return float(self.times_s[-1] - self.times_s[0] + 1.0 / self.fps)
+
+    @property
+    def uneven_timing(self) -> bool:
+        return bool(self.metadata.get("uneven_timing", False))
+
+    def require(self, *names: str) -> None:
+        """Raise :class:`MetadataError` naming the flag to pass for each missing value."""
+        for name in names:
+            if getattr(self, name) is None:
+                flag, what = _FLAGS[name]
+                looked = self.metadata.get("looked_for", {}).get(name, "no metadata")
+                raise MetadataError(
+                    f"{self.source}: the {what} is unknown (looked for {looked}); pass {flag}"
+                )
+
+    def frame(self, index: int) -> np.ndarray:
+        """Return frame ``index`` (negative counts from the end) as float32 (Y, X)."""
+        n = self.n_frames
+        i = int(index)
+        if i < 0:
+            i += n
+        if not 0 <= i < n:
+            raise IndexError(f"frame {index} out of range for {n} frames")
+        return np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32)
+
+    def chunks(self, size: int = 64, *, start: int = 0, stop: int | None = None
+               ) -> Iterator[tuple[int, np.ndarray]]:
+        """Yield ``(first_index, frames)`` with float32 arrays of at most ``size`` frames."""
+        if size < 1:
+            raise ValueError(f"chunk size must be >= 1, got {size}")
+        stop = self.n_frames if stop is None else min(int(stop), self.n_frames)
+        for i in range(int(start), stop, size):
+            j = min(i + size, stop)
+            block = np.asarray(self.frames.read(i, j), dtype=np.float32)
+            if block.shape[0] != j - i:
+                raise InputError(f"{self.source}: could read only {block.shape[0]} of frames "
+                                 f"{i}-{j - 1}; the file may be truncated")
+            yield i, block
+
+    def __iter__(self) -> Iterator[np.ndarray]:
+        for _, block in self.chunks():
+            yield from block
+
+    def __len__(self) -> int:
+        return self.n_frames
