@@ -1,0 +1,52 @@
+"""Figures: one function per figure, ``plot_x(data, *, ax=None) -> Axes``."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from pathlib import Path
+
+from beatlab.io.writers import atomic_path
+
+__all__ = ["save_figure"]
+
+
+def save_figure(draw: Callable, path: str | os.PathLike, *, size=(7.0, 3.0),
+                whole_figure: bool = False, formats: tuple[str, ...] = ("png", "svg")) -> Path:
+    """Draw into a new figure and save it atomically as PNG (and SVG beside it).
+
+    Parameters
+    ----------
+    draw : callable
+        Called with a new Axes (or the Figure when ``whole_figure``).
+    path : path-like
+        The PNG path; other formats are written with the same stem.
+    size : (float, float)
+        Figure size in inches.
+    formats : tuple of str
+        File formats to write.
+
+    Returns
+    -------
+    Path
+        The PNG path.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg", force=False)
+    import matplotlib.pyplot as plt
+
+    from beatlab.plots.style import apply_style
+
+    apply_style(matplotlib)
+    path = Path(path)
+    fig = plt.figure(figsize=size, layout="constrained")
+    try:
+        draw(fig if whole_figure else fig.add_subplot())
+        for fmt in formats:
+            target = path.with_suffix(f".{fmt}")
+            with atomic_path(target) as tmp:
+                fig.savefig(tmp, format=fmt)
+    finally:
+        plt.close(fig)
+    return path

@@ -1,0 +1,106 @@
+"""OPD frames from any recording kind: OPD as stored, phase, or raw holograms.
+
+The analysis stages see only float32 OPD frames in nm, streamed in chunks; this module turns
+each kind of recording into that stream.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+import numpy as np
+
+from beatlab.errors import InputError
+from beatlab.io.recording import Recording
+from beatlab.opd import phase_to_opd, unwrap_phase_ls, wrapped_difference
+
+__all__ = ["OPDSource"]
+
+
+class OPDSource:
+    """Stream a recording's frames as OPD (nm), whatever its kind.
+
+    Parameters
+    ----------
+    recording : Recording
+        An opened recording. Phase and hologram kinds need ``wavelength_nm``.
+    opd_scale : float
+        Stored OPD values are multiplied by this to give nm (kind ``opd``).
+    phase_scale : float
+        Stored phase values are multiplied by this to give radians (kind ``phase``).
+    reference : ndarray, optional
+        Sample-free hologram frame(s) (R, Y, X) for kind ``hologram``.
+    holography : dict, optional
+        Options for :class:`beatlab.holography.OffAxisReconstructor.fit`.
+    chunk_frames : int
+        Frames per chunk.
+
+    Notes
+    -----
+    Phase is unwrapped consistently in time: the first frame is unwrapped in space once
+    (least squares, congruent), every other frame is that plus its wrapped difference to the
+    first frame, so wrapped and unwrapped phase inputs give the same OPD and no pixel can jump
+    by a wavelength between frames.
+    """
+
+    def __init__(self, recording: Recording, *, opd_scale: float = 1.0, phase_scale: float = 1.0,
+                 reference: np.ndarray | None = None, holography: dict | None = None,
+                 chunk_frames: int = 64):
+        self.recording = recording
+        self.opd_scale = float(opd_scale)
+        self.phase_scale = float(phase_scale)
+        self.chunk_frames = int(chunk_frames)
+        self.pixel_size_um = recording.pixel_size_um
+        self.shape = recording.shape
+        self._reconstructor = None
+        if recording.kind in ("phase", "hologram"):
+            recording.require("wavelength_nm")
+        if recording.kind == "phase":
+            first = recording.frame(0).astype(np.float64) * self.phase_scale
+            self._phase_ref = first
+            self._phase_ref_unwrapped = unwrap_phase_ls(first)
+        elif recording.kind == "hologram":
+            from beatlab.holography import OffAxisReconstructor
+
+            recording.require("pixel_size_um")
+            self._reconstructor = OffAxisReconstructor.fit(
+                recording.frame(0), wavelength_nm=recording.wavelength_nm,
+                pixel_size_um=recording.pixel_size_um, reference=reference,
+                **(holography or {}))
+            self.pixel_size_um = float(self._reconstructor.output_pixel_size_um)
+            self.shape = tuple(self._reconstructor.output_shape)
+        elif recording.kind != "opd":
+            raise InputError(f"unknown recording kind {recording.kind!r}")
+
+    @property
+    def n_frames(self) -> int:
+        return self.recording.n_frames
+
+    @property
+    def reconstructor(self):
+        """The hologram reconstructor (None for OPD and phase recordings)."""
+        return self._reconstructor
+
+    def _convert(self, block: np.ndarray) -> np.ndarray:
+        kind = self.recording.kind
+        if kind == "opd":
+            out = block if self.opd_scale == 1.0 else block * np.float32(self.opd_scale)
+            return np.asarray(out, dtype=np.float32)
+        if kind == "phase":
+            out = np.empty(block.shape, dtype=np.float32)
+            for k, frame in enumerate(block):
+                phase = self._phase_ref_unwrapped + wrapped_difference(
+                    frame.astype(np.float64) * self.phase_scale, self._phase_ref)
+                out[k] = phase_to_opd(phase, self.recording.wavelength_nm)
+            return out
+        return np.stack(list(self._reconstructor.opd_frames(block)))
+
+    def chunks(self, *, start: int = 0, stop: int | None = None
+               ) -> Iterator[tuple[int, np.ndarray]]:
+        """Yield ``(first_index, opd_frames)`` float32 (n, Y, X) nm."""
+        for i0, block in self.recording.chunks(self.chunk_frames, start=start, stop=stop):
+            yield i0, self._convert(block)
+
+    def frame(self, index: int) -> np.ndarray:
+        """One OPD frame (Y, X) in nm."""
+        return self._convert(self.recording.frame(index)[None])[0]

@@ -1,0 +1,225 @@
+"""The rest template: find the frames closest to the relaxed state and average them.
+
+A first cheap pass over block-averaged frames measures how far every frame is from the
+relaxed state, *not* how much it changes from the previous frame (the change is near zero at
+the peak of a contraction too). The least-deviating frames, aligned for stage drift and
+levelled, are averaged into the template, which is less noisy than any single frame.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+from scipy import ndimage
+
+from beatlab.errors import InputError
+from beatlab.signals.level import PlaneLeveller
+
+__all__ = ["RestTemplate", "estimate_rest_template", "shift_image", "block_mean"]
+
+logger = logging.getLogger(__name__)
+
+#: rest frames deviate at most this many times the frame noise floor for "rest-frames"
+_REST_FLOOR_FACTOR = 2.0
+
+
+@dataclass(frozen=True)
+class RestTemplate:
+    """The rest template and what was learnt finding it.
+
+    Attributes
+    ----------
+    template : ndarray (Y, X) float32
+        Mean of the aligned, levelled resting frames (nm).
+    rest : ndarray of bool (T,)
+        Frames used as resting frames.
+    deviation : ndarray (T,)
+        Each frame's RMS deviation (nm, block-averaged) from the relaxed state.
+    shifts_px : ndarray (T, 2)
+        Rigid (dx, dy) shift of each frame against the template from the cheap pass, px.
+    noise_var : ndarray (Y, X) float32
+        Per-pixel variance (nm^2) of a single resting frame about the true rest state.
+    n_frames_used : int
+        Number of frames averaged.
+    method : str
+        ``'rest-frames'``, or ``'least-deviating-frames'`` when no frames came close to the
+        noise floor (fast or fibrillation-like beating: no true rest).
+    """
+
+    template: np.ndarray
+    rest: np.ndarray
+    deviation: np.ndarray
+    shifts_px: np.ndarray
+    noise_var: np.ndarray
+    n_frames_used: int
+    method: str
+    info: dict = field(default_factory=dict)
+
+
+def block_mean(frame: np.ndarray, factor: int) -> np.ndarray:
+    """Average non-overlapping ``factor x factor`` blocks (NaN-aware); edges are cropped."""
+    if factor <= 1:
+        return np.asarray(frame, dtype=np.float32)
+    ny, nx = (s // factor for s in frame.shape)
+    f = np.asarray(frame[: ny * factor, : nx * factor], dtype=np.float32)
+    blocks = f.reshape(ny, factor, nx, factor)
+    with np.errstate(invalid="ignore"):
+        out = np.nanmean(blocks, axis=(1, 3)) if np.isnan(f).any() else blocks.mean(axis=(1, 3))
+    return out.astype(np.float32)
+
+
+def shift_image(image: np.ndarray, shift_px: np.ndarray) -> np.ndarray:
+    """Translate ``image`` by ``shift_px`` = (dx, dy) with an exact Fourier shift.
+
+    NaN pixels are filled with the image median for the transform and stay NaN after it.
+    """
+    image = np.asarray(image, dtype=np.float32)
+    bad = ~np.isfinite(image)
+    work = np.where(bad, np.nanmedian(image) if (~bad).any() else 0.0, image)
+    out = np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(work), (shift_px[1], shift_px[0])))
+    out = out.real.astype(np.float32)
+    if bad.any():
+        moved = ndimage.shift(bad.astype(np.float32), (shift_px[1], shift_px[0]), order=1,
+                              mode="nearest")
+        out[moved > 0.01] = np.nan
+    return out
+
+
+def _filled(frame: np.ndarray) -> np.ndarray:
+    if np.isnan(frame).any():
+        return np.where(np.isnan(frame), np.nanmedian(frame), frame).astype(np.float32)
+    return frame
+
+
+def _phase_shift(ref: np.ndarray, img: np.ndarray, window: np.ndarray) -> np.ndarray:
+    (dx, dy), _ = cv2.phaseCorrelate(ref.astype(np.float64), img.astype(np.float64), window)
+    return np.array([dx, dy])
+
+
+def estimate_rest_template(
+    source,
+    *,
+    rest_quantile: float = 0.25,
+    max_rest_frames: int = 64,
+    level_tilt: bool = True,
+    lowres_px: int = 64,
+    progress: bool = False,
+) -> RestTemplate:
+    """Find the resting frames of a recording and average them into a rest template.
+
+    Parameters
+    ----------
+    source : beatlab.frames.OPDSource
+        Streams OPD frames (nm) in chunks; ``source.frame(i)`` gives one frame.
+    rest_quantile : float
+        Share of the frames, those closest to the relaxed state, taken as resting frames.
+    max_rest_frames : int
+        At most this many resting frames (evenly spaced in time) are averaged.
+    level_tilt : bool
+        Level offset and tilt of each frame, not only the offset.
+    lowres_px : int
+        The cheap pass works on frames block-averaged to about this size.
+    progress : bool
+        Show a progress bar.
+
+    Returns
+    -------
+    RestTemplate
+
+    Raises
+    ------
+    InputError
+        If every frame is NaN.
+
+    Notes
+    -----
+    Deviation of frame t: RMS over the block-averaged field of the levelled, drift-aligned
+    difference to the current rest estimate. The estimate starts as the temporal median and
+    is refined twice as the mean of the least-deviating ``rest_quantile`` of frames. Rigid
+    shifts are measured by phase correlation (Kuglin & Hines 1975) on the block-averaged
+    frames, so stage drift does not read as deviation nor blur the template.
+    """
+    from tqdm.auto import tqdm
+
+    ny, nx = source.shape
+    factor = max(1, min(ny, nx) // max(int(lowres_px), 8))
+    lows = []
+    with tqdm(total=source.n_frames, desc="rest pass", unit="frame", disable=not progress,
+              leave=False) as bar:
+        for _, block in source.chunks():
+            for frame in block:
+                lows.append(_filled(block_mean(frame, factor)))
+            bar.update(len(block))
+    low = np.stack(lows)
+    n = low.shape[0]
+    if not np.isfinite(low).any():
+        raise InputError("every pixel of every frame is NaN; nothing to analyse")
+    window = cv2.createHanningWindow(low.shape[:0:-1], cv2.CV_64F)
+    ref = np.median(low, axis=0)
+    shifts = np.zeros((n, 2))
+    deviation = np.zeros(n)
+    rest = np.ones(n, dtype=bool)
+    for _ in range(3):
+        leveller = PlaneLeveller(ref, tilt=level_tilt, step=1)
+        aligned = np.empty_like(low)
+        for t in range(n):
+            shifts[t] = _phase_shift(ref, low[t], window)
+            moved = low[t]
+            if np.hypot(*shifts[t]) > 0.02:
+                moved = ndimage.shift(low[t], (-shifts[t][1], -shifts[t][0]), order=3,
+                                      mode="nearest")
+            moved = leveller.level(moved)
+            aligned[t] = moved
+            deviation[t] = np.sqrt(np.mean((moved - ref)[2:-2, 2:-2] ** 2))
+        cut = np.quantile(deviation, rest_quantile)
+        rest = deviation <= cut
+        ref = aligned[rest].mean(axis=0)
+    # noise floor of the deviation: consecutive resting frames differ by noise only
+    diffs = np.sqrt(np.mean((aligned[1:] - aligned[:-1])[:, 2:-2, 2:-2] ** 2, axis=(1, 2)))
+    floor = float(np.median(diffs) / np.sqrt(2)) if n > 1 else 0.0
+    rest_level = float(np.median(deviation[rest]))
+    method = ("rest-frames" if rest_level <= _REST_FLOOR_FACTOR * max(floor, 1e-12)
+              else "least-deviating-frames")
+    if method != "rest-frames":
+        logger.info("no frames at the noise floor (%.3g nm vs %.3g nm): using the least "
+                    "deviating frames as the rest state", rest_level, floor)
+    # full-resolution template from the chosen frames
+    idx = np.flatnonzero(rest)
+    if idx.size > max_rest_frames:
+        idx = idx[np.round(np.linspace(0, idx.size - 1, max_rest_frames)).astype(int)]
+    full_shifts = shifts * factor
+    first = source.frame(int(idx[0]))
+    base = shift_image(first, -full_shifts[idx[0]]) if np.hypot(*full_shifts[idx[0]]) > 0.02 \
+        else first
+    leveller = PlaneLeveller(base, tilt=level_tilt)
+    frames = []
+    for i in idx:
+        f = source.frame(int(i))
+        if np.hypot(*full_shifts[i]) > 0.02:
+            f = shift_image(f, -full_shifts[i])
+        frames.append(leveller.level(f))
+    stack = np.stack(frames)
+    with np.errstate(invalid="ignore"):
+        template = np.nanmean(stack, axis=0) if np.isnan(stack).any() else stack.mean(axis=0)
+    k = stack.shape[0]
+    if k > 1:
+        with np.errstate(invalid="ignore"):
+            resid = np.nanmean((stack - template) ** 2, axis=0)
+        # each frame is part of the mean: E[resid] = (1 - 1/k) sigma^2
+        noise_var = resid * k / (k - 1)
+    else:
+        noise_var = np.full(template.shape, np.nan, dtype=np.float32)
+    return RestTemplate(
+        template=template.astype(np.float32),
+        rest=rest,
+        deviation=deviation,
+        shifts_px=full_shifts,
+        noise_var=noise_var.astype(np.float32),
+        n_frames_used=int(k),
+        method=method,
+        info={"deviation_floor_nm": floor, "rest_deviation_nm": rest_level,
+              "block_factor": factor},
+    )

@@ -1,0 +1,79 @@
+"""Per-frame traces derived from the flow and OPD passes: velocity and OPD change."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.signal import savgol_filter
+
+__all__ = ["velocity_trace", "opd_change_trace"]
+
+
+def velocity_trace(displacement_um: np.ndarray, times_s: np.ndarray, *, window_ms: float = 60.0,
+                   polyorder: int = 2) -> np.ndarray:
+    """Signed time derivative of the displacement trace (um/s).
+
+    Parameters
+    ----------
+    displacement_um : ndarray (T,)
+        Displacement trace in um.
+    times_s : ndarray (T,)
+        Frame times in seconds (even or uneven).
+    window_ms : float
+        Savitzky-Golay window in ms; rounded to an odd number of frames, at least
+        ``polyorder + 2`` (polyorder + 1 when that is odd) frames. 0 gives central differences.
+    polyorder : int
+        Polynomial order of the Savitzky-Golay filter.
+
+    Returns
+    -------
+    ndarray (T,)
+        Velocity in um/s: positive while contracting, negative while relaxing.
+
+    Notes
+    -----
+    Savitzky & Golay (1964), Anal Chem 36:1627: the derivative of a local least-squares
+    polynomial. With uneven frame times the trace is first interpolated onto an even grid at
+    the median interval, differentiated, and sampled back.
+    """
+    d = np.asarray(displacement_um, dtype=np.float64)
+    t = np.asarray(times_s, dtype=np.float64)
+    if d.size < 3:
+        return np.zeros_like(d)
+    dt = np.diff(t)
+    step = float(np.median(dt))
+    even = np.allclose(dt, step, rtol=1e-3)
+    if window_ms <= 0:
+        return np.gradient(d, t)
+    n = int(round(window_ms / 1e3 / step))
+    n = max(n, polyorder + 2)
+    if n % 2 == 0:
+        n += 1
+    if n > d.size:
+        n = d.size if d.size % 2 else d.size - 1
+    if n <= polyorder:
+        return np.gradient(d, t)
+    if even:
+        return savgol_filter(d, n, polyorder, deriv=1, delta=step, mode="interp")
+    grid = np.arange(t[0], t[-1] + step / 2, step)
+    v = savgol_filter(np.interp(grid, t, d), n, polyorder, deriv=1, delta=step, mode="interp")
+    return np.interp(t, grid, v)
+
+
+def opd_change_trace(mean_square_nm2: np.ndarray, noise_var_nm2: np.ndarray | float
+                     ) -> np.ndarray:
+    """RMS OPD change with the frame noise removed in quadrature, floored at 0 (nm).
+
+    Parameters
+    ----------
+    mean_square_nm2 : ndarray (T,)
+        Mean over the mask of (OPD_t - template)^2 for each frame, nm^2.
+    noise_var_nm2 : float or ndarray (T,)
+        Expected mean square of that difference at rest (frame noise plus template noise).
+
+    Returns
+    -------
+    ndarray (T,)
+        ``sqrt(max(ms - noise, 0))``: about 0 at rest, growing with the contraction.
+    """
+    ms = np.asarray(mean_square_nm2, dtype=np.float64)
+    return np.sqrt(np.clip(ms - noise_var_nm2, 0.0, None))

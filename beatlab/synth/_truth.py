@@ -1,0 +1,295 @@
+"""Ground truth of a simulated recording: per-beat landmarks and summary by the exact definitions.
+
+Written from the definitions in the design notes ("Per-beat landmarks", the beats.csv columns and
+the summary.json keys), independently of the analysis code, on a dense noise-free trace.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["TRUTH_DT_S", "beat_truth", "summarize_truth", "BEAT_COLUMNS"]
+
+#: Time step of the dense truth grid (s).
+TRUTH_DT_S = 1e-4
+#: Window of the baseline median, centred on the lowest point (s).
+_BASELINE_WINDOW_S = 0.100
+#: Relative IBI deviation from the median above which a beat is irregular.
+_IRREGULAR_FRACTION = 0.25
+
+BEAT_COLUMNS = (
+    "beat",
+    "onset_s",
+    "peak_s",
+    "end_s",
+    "ibi_s",
+    "time_to_peak_s",
+    "relax_50_s",
+    "relax_90_s",
+    "duration_50_s",
+    "duration_90_s",
+    "displacement_um",
+    "contraction_velocity_um_s",
+    "relaxation_velocity_um_s",
+    "secondary_peak",
+    "irregular",
+    "baseline_um",
+)
+
+#: Per-beat columns whose median goes into the summary.
+_MEDIAN_COLUMNS = (
+    "ibi_s",
+    "time_to_peak_s",
+    "relax_50_s",
+    "relax_90_s",
+    "duration_50_s",
+    "duration_90_s",
+    "displacement_um",
+    "contraction_velocity_um_s",
+    "relaxation_velocity_um_s",
+)
+
+
+def _up_crossing(t, d, level, i0, ip):
+    """Last upward crossing of ``level`` in ``d[i0:ip+1]``, linearly interpolated; or None."""
+    seg = d[i0 : ip + 1]
+    hits = np.flatnonzero((seg[:-1] < level) & (seg[1:] >= level))
+    if hits.size == 0:
+        return None
+    i = i0 + hits[-1]
+    return float(t[i] + (level - d[i]) / (d[i + 1] - d[i]) * (t[i + 1] - t[i]))
+
+
+def _down_crossing(t, d, level, ip, i1):
+    """Last downward crossing of ``level`` in ``d[ip:i1+1]``, linearly interpolated; or None."""
+    seg = d[ip : i1 + 1]
+    hits = np.flatnonzero((seg[:-1] >= level) & (seg[1:] < level))
+    if hits.size == 0:
+        return None
+    i = ip + hits[-1]
+    return float(t[i] + (d[i] - level) / (d[i] - d[i + 1]) * (t[i + 1] - t[i]))
+
+
+def _vertex(t, d, i):
+    """Vertex of the parabola through samples i-1, i, i+1."""
+    y0, y1, y2 = d[i - 1], d[i], d[i + 1]
+    den = y0 - 2 * y1 + y2
+    if den == 0:
+        return float(t[i]), float(y1)
+    off = 0.5 * (y0 - y2) / den
+    dt = t[i + 1] - t[i]
+    return float(t[i] + off * dt), float(y1 - 0.25 * (y0 - y2) * off)
+
+
+def _diff(a, b):
+    return None if a is None or b is None else float(a - b)
+
+
+def beat_truth(t, d, onsets_s, ead):
+    """Per-beat landmarks of a dense noise-free trace.
+
+    Parameters
+    ----------
+    t : ndarray (N,)
+        Dense, evenly spaced time grid in s, from the first to the last frame time.
+    d : ndarray (N,)
+        True displacement trace in um on ``t``.
+    onsets_s : ndarray (K,)
+        Activation onsets of the schedule that drives this trace; beat ``k`` is searched for
+        between onset ``k`` and onset ``k + 1``.
+    ead : ndarray (K,) of bool
+        Beats given an EAD-like second step (the ``secondary_peak`` truth).
+
+    Returns
+    -------
+    list of dict
+        One dict per beat with a peak inside the recording, keys :data:`BEAT_COLUMNS`; undefined
+        values are None.
+    """
+    n = t.size
+    dt = t[1] - t[0]
+    vel = np.gradient(d, dt)
+    found = []
+    for k, onset in enumerate(onsets_s):
+        i0 = int(np.searchsorted(t, onset))
+        nxt = onsets_s[k + 1] if k + 1 < len(onsets_s) else np.inf
+        i1 = min(int(np.searchsorted(t, nxt)), n)
+        if i1 - i0 < 3:
+            continue
+        ip = i0 + int(np.argmax(d[i0:i1]))
+        # a peak at the window edge is truncated by the recording end or not a maximum
+        if ip <= i0 or ip >= i1 - 1 or ip >= n - 1 or d[ip] <= 0:
+            continue
+        found.append((k, ip))
+
+    beats = []
+    prev_ip = 0
+    for k, ip in found:
+        peak_s, peak_v = _vertex(t, d, ip)
+        lo = prev_ip + int(np.argmin(d[prev_ip : ip + 1]))
+        half = int(round(0.5 * _BASELINE_WINDOW_S / dt))
+        base = float(np.median(d[max(lo - half, 0) : min(lo + half + 1, n)]))
+        amp = peak_v - base
+        if amp <= 0:
+            prev_ip = ip
+            continue
+        beats.append(
+            {
+                "k": k,
+                "ip": ip,
+                "prev_ip": prev_ip,
+                "peak_s": peak_s,
+                "base": base,
+                "amp": amp,
+                "onset_s": _up_crossing(t, d, base + 0.1 * amp, prev_ip, ip),
+                "up50_s": _up_crossing(t, d, base + 0.5 * amp, prev_ip, ip),
+            }
+        )
+        prev_ip = ip
+
+    rows = []
+    for b, beat in enumerate(beats):
+        ip = beat["ip"]
+        if b + 1 < len(beats):
+            nb = beats[b + 1]
+            stop_s = nb["onset_s"] if nb["onset_s"] is not None else nb["peak_s"]
+            i1 = min(int(np.searchsorted(t, stop_s)), n - 1)
+        else:
+            i1 = n - 1
+        base, amp = beat["base"], beat["amp"]
+        end_s = _down_crossing(t, d, base + 0.1 * amp, ip, i1)
+        down50 = _down_crossing(t, d, base + 0.5 * amp, ip, i1)
+        ibi = beat["peak_s"] - beats[b - 1]["peak_s"] if b > 0 else None
+        rows.append(
+            {
+                "beat": b + 1,
+                "onset_s": beat["onset_s"],
+                "peak_s": beat["peak_s"],
+                "end_s": end_s,
+                "ibi_s": ibi,
+                "time_to_peak_s": _diff(beat["peak_s"], beat["onset_s"]),
+                "relax_50_s": _diff(down50, beat["peak_s"]),
+                "relax_90_s": _diff(end_s, beat["peak_s"]),
+                "duration_50_s": _diff(down50, beat["up50_s"]),
+                "duration_90_s": _diff(end_s, beat["onset_s"]),
+                "displacement_um": float(amp),
+                "contraction_velocity_um_s": float(np.max(vel[beat["prev_ip"] : ip + 1])),
+                "relaxation_velocity_um_s": float(-np.min(vel[ip : i1 + 1])),
+                "secondary_peak": bool(ead[beat["k"]]),
+                "irregular": False,
+                "baseline_um": float(base),
+            }
+        )
+    ibis = [r["ibi_s"] for r in rows if r["ibi_s"] is not None]
+    if ibis:
+        med = float(np.median(ibis))
+        for r in rows:
+            if r["ibi_s"] is not None:
+                r["irregular"] = bool(abs(r["ibi_s"] - med) > _IRREGULAR_FRACTION * med)
+    return rows
+
+
+def _median(rows, key):
+    vals = [r[key] for r in rows if r[key] is not None]
+    return float(np.median(vals)) if vals else None
+
+
+def summarize_truth(rows, *, t_end_s):
+    """Recording-level truth from per-beat rows (the summary.json keys).
+
+    Parameters
+    ----------
+    rows : list of dict
+        Output of :func:`beat_truth`.
+    t_end_s : float
+        Time of the last frame in s.
+
+    Returns
+    -------
+    dict
+        ``beat_count``, ``beat_rate_bpm``, ``longest_pause_s``, interval indices
+        (``ibi_mean_s``, ``ibi_cv``, ``sdnn_s``, ``rmssd_s``, ``sd1_s``, ``sd2_s``; None below
+        3 IBIs), the medians of the per-beat columns, rate-corrected durations, short-term
+        variability, ``irregular_fraction``, ``secondary_peak_beats``, ``alternans_index``
+        (None below 8 beats) and ``rhythm``.
+
+    Notes
+    -----
+    RMSSD and SDNN as in Task Force of ESC/NASPE 1996 (Circulation 93:1043); SD1/SD2 from the
+    identities of Brennan, Palaniswami & Kamen 2001 (IEEE TBME 48:1342); Bazett 1920 and
+    Fridericia 1920 rate corrections.
+    """
+    n = len(rows)
+    ibi = np.array([r["ibi_s"] for r in rows if r["ibi_s"] is not None], dtype=float)
+    out = {"beat_count": n}
+    if n == 0:
+        out["beat_rate_bpm"] = 0.0
+    elif ibi.size == 0:
+        out["beat_rate_bpm"] = None
+    else:
+        out["beat_rate_bpm"] = float(60.0 / ibi.mean())
+
+    if n == 0:
+        pause = t_end_s
+    else:
+        gaps = list(np.diff([r["peak_s"] for r in rows]))
+        first = rows[0]["onset_s"] if rows[0]["onset_s"] is not None else rows[0]["peak_s"]
+        last = rows[-1]["end_s"] if rows[-1]["end_s"] is not None else rows[-1]["peak_s"]
+        gaps += [first, t_end_s - last]
+        pause = max(gaps)
+    out["longest_pause_s"] = float(pause)
+
+    keys = ("ibi_mean_s", "ibi_cv", "sdnn_s", "rmssd_s", "sd1_s", "sd2_s")
+    out.update(dict.fromkeys(keys))
+    if ibi.size >= 3:
+        diffs = np.diff(ibi)
+        sd1 = np.std(diffs, ddof=1) / np.sqrt(2.0)
+        var_sum = np.var(ibi[:-1], ddof=1) + np.var(ibi[1:], ddof=1)
+        out.update(
+            ibi_mean_s=float(ibi.mean()),
+            ibi_cv=float(np.std(ibi, ddof=1) / ibi.mean()),
+            sdnn_s=float(np.std(ibi, ddof=1)),
+            rmssd_s=float(np.sqrt(np.mean(diffs**2))),
+            sd1_s=float(sd1),
+            sd2_s=float(np.sqrt(max(var_sum - sd1**2, 0.0))),
+        )
+    for key in _MEDIAN_COLUMNS:
+        out[key] = _median(rows, key)
+
+    bazett, frid = [], []
+    for r in rows:
+        if r["duration_90_s"] is not None and r["ibi_s"] is not None:
+            bazett.append(r["duration_90_s"] / r["ibi_s"] ** 0.5)
+            frid.append(r["duration_90_s"] / r["ibi_s"] ** (1.0 / 3.0))
+    out["duration_90_bazett_s"] = float(np.median(bazett)) if bazett else None
+    out["duration_90_fridericia_s"] = float(np.median(frid)) if frid else None
+    durs = [r["duration_90_s"] for r in rows if r["duration_90_s"] is not None]
+    out["duration_90_stv_s"] = (
+        float(np.sum(np.abs(np.diff(durs))) / ((len(durs) - 1) * np.sqrt(2.0)))
+        if len(durs) >= 2
+        else None
+    )
+    irregular = [r["irregular"] for r in rows if r["ibi_s"] is not None]
+    out["irregular_fraction"] = float(np.mean(irregular)) if irregular else None
+    out["secondary_peak_beats"] = int(sum(r["secondary_peak"] for r in rows))
+    amps = np.array([r["displacement_um"] for r in rows], dtype=float)
+    if n >= 8:
+        sign = (-1.0) ** np.arange(n)
+        out["alternans_index"] = float(2 * abs(np.mean(sign * (amps - amps.mean()))) / amps.mean())
+    else:
+        out["alternans_index"] = None
+
+    if n == 0:
+        rhythm = "quiescent"
+    elif ibi.size < 4:
+        rhythm = "undetermined"
+    elif (
+        out["ibi_cv"] > 0.15
+        or out["irregular_fraction"] > 0.1
+        or out["longest_pause_s"] > 2.5 * out["ibi_s"]
+    ):
+        rhythm = "irregular"
+    else:
+        rhythm = "regular"
+    out["rhythm"] = rhythm
+    return out
