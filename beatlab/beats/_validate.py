@@ -4,7 +4,14 @@ import numpy as np
 
 from beatlab.errors import InputError
 
-__all__ = ["as_times", "as_trace", "check_fraction", "check_non_negative", "check_positive"]
+__all__ = [
+    "as_peaks",
+    "as_times",
+    "as_trace",
+    "check_fraction",
+    "check_non_negative",
+    "check_positive",
+]
 
 
 def as_trace(trace, *, name="trace", allow_nan=False):
@@ -61,3 +68,21 @@ def check_fraction(value, name):
     if not np.isfinite(value) or not 0 < value < 1:
         raise InputError(f"{name} must lie strictly between 0 and 1, got {value!r}")
     return float(value)
+
+
+def as_peaks(peaks, n_samples):
+    """Return `peaks` as strictly increasing int indices into a trace of `n_samples`."""
+    idx = np.asarray(peaks)
+    if idx.size == 0:
+        return np.zeros(0, dtype=np.intp)
+    if idx.ndim != 1 or not np.issubdtype(idx.dtype, np.integer):
+        raise InputError(
+            f"peaks must be a 1-D array of integer sample indices, got dtype {idx.dtype} and "
+            f"shape {idx.shape}; pass the output of detect_beats"
+        )
+    if idx.min() < 0 or idx.max() >= n_samples or np.any(np.diff(idx) <= 0):
+        raise InputError(
+            f"peaks must be strictly increasing indices in [0, {n_samples - 1}], got "
+            f"{idx.min()}..{idx.max()}; pass the output of detect_beats for this trace"
+        )
+    return idx.astype(np.intp)

@@ -3,7 +3,7 @@
 import numpy as np
 from scipy.stats import norm
 
-from beatlab.beats._validate import as_times, as_trace, check_non_negative
+from beatlab.beats._validate import as_peaks, as_times, as_trace, check_non_negative
 from beatlab.errors import InputError
 
 __all__ = ["NOISE_METHODS", "estimate_beat_baselines", "estimate_noise"]
@@ -136,7 +136,7 @@ def estimate_beat_baselines(trace, times_s, peaks, *, window_s=0.1, min_samples=
     window_s = check_non_negative(window_s, "window_s")
     if int(min_samples) != min_samples or min_samples < 1:
         raise InputError(f"min_samples must be an integer >= 1, got {min_samples!r}")
-    idx = _as_peaks(peaks, values.size)
+    idx = as_peaks(peaks, values.size)
     baselines = np.empty(idx.size)
     lowest = np.empty(idx.size, dtype=np.intp)
     previous = 0
@@ -151,20 +151,3 @@ def estimate_beat_baselines(trace, times_s, peaks, *, window_s=0.1, min_samples=
         lowest[k] = low
         previous = peak
     return baselines, lowest
-
-
-def _as_peaks(peaks, n_samples):
-    idx = np.asarray(peaks)
-    if idx.size == 0:
-        return np.zeros(0, dtype=np.intp)
-    if idx.ndim != 1 or not np.issubdtype(idx.dtype, np.integer):
-        raise InputError(
-            f"peaks must be a 1-D array of integer sample indices, got dtype {idx.dtype} and "
-            f"shape {idx.shape}; pass the output of detect_beats"
-        )
-    if idx.min() < 0 or idx.max() >= n_samples or np.any(np.diff(idx) <= 0):
-        raise InputError(
-            f"peaks must be strictly increasing indices in [0, {n_samples - 1}], got "
-            f"{idx.min()}..{idx.max()}; pass the output of detect_beats for this trace"
-        )
-    return idx.astype(np.intp)

@@ -109,8 +109,11 @@ def smooth_local_quadratic(trace, times_s, *, bandwidth_s):
         return values, fallback_slope
     s, r, count = _moments(values, times, bandwidth_s, 2)
     matrix = np.stack(
-        [np.stack([s[0], s[1], s[2]], -1), np.stack([s[1], s[2], s[3]], -1),
-         np.stack([s[2], s[3], s[4]], -1)],
+        [
+            np.stack([s[0], s[1], s[2]], -1),
+            np.stack([s[1], s[2], s[3]], -1),
+            np.stack([s[2], s[3], s[4]], -1),
+        ],
         axis=1,
     )
     rhs = np.stack([r[0], r[1], r[2]], -1)
@@ -192,8 +195,9 @@ def noise_gain(sample_interval_s, *, bandwidth_s, kind="local_quadratic"):
     half = int(np.ceil(_CUTOFF_SD * bandwidth_s / dt) + 1)
     offsets = np.arange(-half, half + 1)
     x = offsets * dt
-    w = np.concatenate([_weights(x[k : k + 1], int(offsets[k]), bandwidth_s) for k in
-                        range(offsets.size)])
+    w = np.concatenate(
+        [_weights(x[k : k + 1], int(offsets[k]), bandwidth_s) for k in range(offsets.size)]
+    )
     if kind == "gaussian":
         kernel = w / w.sum()
     else:

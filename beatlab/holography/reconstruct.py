@@ -26,6 +26,8 @@ logger = logging.getLogger(__name__)
 
 _SIDEBANDS = {"auto": None, "+1": 1, "-1": -1}
 _TWO_PI = 2.0 * np.pi
+#: Output pixels at each edge left out of the background fits when there is no reference.
+_EDGE_PX = 2
 
 
 def _positive(name, value, flag):
@@ -231,6 +233,8 @@ class OffAxisReconstructor:
             raise ConfigError(f"radius: got {radius!r}; pass 'auto' or cycles per pixel")
         filt = SidebandFilter(frame0.shape, k, r, taper=taper, workers=workers)
         field0 = filt.demodulate(frame0).astype(np.complex128)
+        # without a reference, the frame edges (where a non-integer carrier wraps round) ring
+        interior = _interior(filt.output_shape, 0 if reference is not None else _EDGE_PX)
 
         if reference is not None:
             refs = np.asarray(reference)
@@ -245,14 +249,14 @@ class OffAxisReconstructor:
             power = np.abs(ref_field) ** 2
             pre = np.conj(ref_field) / (power + 1e-12 * power.mean())
         else:
-            surface = _level_surface(field0, polynomial_order)
+            surface = _level_surface(field0, polynomial_order, interior)
             pre = np.exp(-1j * surface) / np.median(np.abs(field0))
         corrected = field0 * pre
 
         if sideband == "auto":
             phase = _unwrapped(corrected)
-            mask, level = estimate_background_mask(phase)
-            sign, decided = estimate_phase_sign(phase, level_rad=level)
+            mask, level = estimate_background_mask(np.where(interior, phase, np.nan))
+            sign, decided = estimate_phase_sign(phase[interior], level_rad=level)
             if not decided:
                 warnings.warn(
                     "sideband: could not tell the phase sign from the first frame (no object "
@@ -292,13 +296,13 @@ class OffAxisReconstructor:
                 )
                 corrected = propagator.propagate(corrected, z_um)
                 if reference is None:
-                    post = np.exp(-1j * _level_surface(corrected, polynomial_order))
+                    post = np.exp(-1j * _level_surface(corrected, polynomial_order, interior))
                     corrected = corrected * post
 
         phase = _unwrapped(corrected * np.exp(-1j * phase_offset(corrected)))
-        mask, _ = estimate_background_mask(phase)
+        mask, _ = estimate_background_mask(np.where(interior, phase, np.nan))
         wrapped0 = np.angle(corrected * np.exp(-1j * phase_offset(corrected, mask=mask)))
-        unwrapped0 = unwrap_phase_ls(wrapped0)
+        unwrapped0 = unwrap_phase_ls(wrapped0, weights=_weights(corrected))
         unwrapped0 = unwrapped0 - _TWO_PI * np.round(np.median(unwrapped0[mask]) / _TWO_PI)
 
         return cls(
@@ -396,8 +400,26 @@ def _unwrapped(field):
     return unwrap_phase_ls(np.angle(field))
 
 
-def _level_surface(field, order):
+def _level_surface(field, order, mask):
     """Polynomial phase of the background of a complex field, in rad."""
     phase = _unwrapped(field)
-    surface, _ = fit_phase_polynomial(phase, order=order)
+    surface, _ = fit_phase_polynomial(phase, order=order, mask=mask)
     return surface
+
+
+def _interior(shape, edge_px):
+    """Boolean map of the pixels at least ``edge_px`` from the frame edges."""
+    inside = np.zeros(shape, dtype=bool)
+    ny, nx = shape
+    if min(ny, nx) <= 4 * edge_px:
+        inside[:] = True
+    else:
+        inside[edge_px : ny - edge_px, edge_px : nx - edge_px] = True
+    return inside
+
+
+def _weights(field):
+    """Unwrapping weights: amplitude over its median, capped at 1 (dark fringes count less)."""
+    amp = np.abs(field)
+    med = np.median(amp)
+    return np.clip(amp / med, 0.0, 1.0) if med > 0 else np.ones_like(amp)

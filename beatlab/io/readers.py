@@ -61,6 +61,18 @@ class _ArraySource:
         self.frame_shape = tuple(int(s) for s in array.shape[1:])
         self.dtype = np.dtype(array.dtype)
 
+    def close(self) -> None:
+        if self.owner is not None:
+            self.owner.close()
+
+    def __del__(self):
+        owner = getattr(self, "owner", None)
+        if owner is not None:
+            try:
+                owner.close()
+            except Exception:  # noqa: BLE001 - h5py may be torn down at exit
+                pass
+
     def read(self, start: int, stop: int) -> np.ndarray:
         return np.asarray(self.array[start:stop])
 
@@ -75,6 +87,14 @@ class _TiffPageSource:
         self.dtype = np.dtype(dtype)
         self._tif = tifffile.TiffFile(path)
         self._series = self._tif.series[0]
+
+    def close(self) -> None:
+        self._tif.close()
+
+    def __del__(self):
+        tif = getattr(self, "_tif", None)
+        if tif is not None:
+            tif.close()
 
     def read(self, start: int, stop: int) -> np.ndarray:
         pages = self._series.pages

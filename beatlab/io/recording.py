@@ -130,6 +130,18 @@ class Recording:
                                  f"{i}-{j - 1}; the file may be truncated")
             yield i, block
 
+    def close(self) -> None:
+        """Release the file behind the frames (also done when the recording is collected)."""
+        close = getattr(self.frames, "close", None)
+        if close is not None:
+            close()
+
+    def __enter__(self) -> Recording:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
     def __iter__(self) -> Iterator[np.ndarray]:
         for _, block in self.chunks():
             yield from block

@@ -20,7 +20,7 @@ def velocity_trace(displacement_um: np.ndarray, times_s: np.ndarray, *, window_m
         Frame times in seconds (even or uneven).
     window_ms : float
         Savitzky-Golay window in ms; rounded to an odd number of frames, at least
-        ``polyorder + 2`` (polyorder + 1 when that is odd) frames. 0 gives central differences.
+        ``polyorder + 1`` (made odd) frames. 0 gives central differences.
     polyorder : int
         Polynomial order of the Savitzky-Golay filter.
 
@@ -45,7 +45,7 @@ def velocity_trace(displacement_um: np.ndarray, times_s: np.ndarray, *, window_m
     if window_ms <= 0:
         return np.gradient(d, t)
     n = int(round(window_ms / 1e3 / step))
-    n = max(n, polyorder + 2)
+    n = max(n, polyorder + 1)
     if n % 2 == 0:
         n += 1
     if n > d.size:

@@ -76,7 +76,7 @@ def field_displacement(fields, activations, y_um, x_um):
     """
     uy = np.zeros_like(y_um, dtype=np.float64)
     ux = np.zeros_like(x_um, dtype=np.float64)
-    for fld, act in zip(fields, activations):
+    for fld, act in zip(fields, activations, strict=True):
         if act == 0 or fld.strain == 0:
             continue
         dy = y_um - fld.centre_um[0]
@@ -103,7 +103,7 @@ def field_gradient(fields, activations, y_um, x_um):
         ``gyx`` is ``d u_y / d x`` and so on (dimensionless).
     """
     g = [np.zeros_like(y_um, dtype=np.float64) for _ in range(4)]
-    for fld, act in zip(fields, activations):
+    for fld, act in zip(fields, activations, strict=True):
         if act == 0 or fld.strain == 0:
             continue
         dy = y_um - fld.centre_um[0]

@@ -14,7 +14,7 @@ from scipy import ndimage
 
 from beatlab.errors import ConfigError
 
-__all__ = ["ClusterGeometry", "place_clusters", "render_scene", "LAYOUTS"]
+__all__ = ["LAYOUTS", "ClusterGeometry", "place_clusters", "render_scene"]
 
 LAYOUTS = ("clusters", "confluent")
 
@@ -99,12 +99,19 @@ def place_clusters(layout, n_clusters, size_um, *, cluster_radius_um, rng):
     else:
         if n_clusters == 1:
             jitter = 0.05 * short
-            centres = [(h / 2 + rng.uniform(-jitter, jitter), w / 2 + rng.uniform(-jitter, jitter))]
+            centres = [
+                (h / 2 + rng.uniform(-jitter, jitter), w / 2 + rng.uniform(-jitter, jitter))
+            ]
             outer = 0.45 * short
         else:
             dmin = 0.8 * short / np.sqrt(n_clusters)
             centres = _sample_centres(
-                n_clusters, (0.1 * h, 0.1 * w), (0.9 * h, 0.9 * w), dmin, rng, "contraction centres"
+                n_clusters,
+                (0.1 * h, 0.1 * w),
+                (0.9 * h, 0.9 * w),
+                dmin,
+                rng,
+                "contraction centres",
             )
             outer = 0.5 * dmin
         radius, core = outer, 0.5 * outer
@@ -170,7 +177,9 @@ def render_scene(layout, clusters, canvas_shape, *, pad_px, pixel_size_um, rng):
             length_um = float(np.clip(0.9 * cl.radius_um, 8.0, 22.0))
             reach = max(cl.radius_um - 0.5 * length_um, 0.0)
             width_mean = 0.33 * length_um
-            n_cells = int(min(60, np.ceil(2.5 * cl.radius_um**2 / (0.25 * length_um * width_mean))))
+            n_cells = int(
+                min(60, np.ceil(2.5 * cl.radius_um**2 / (0.25 * length_um * width_mean)))
+            )
             for _ in range(n_cells):
                 r = reach * np.sqrt(rng.uniform())
                 phi = rng.uniform(0, 2 * np.pi)

@@ -123,7 +123,9 @@ def evaluate_activation(times_s, schedule: BeatSchedule):
     """
     times_s = np.asarray(times_s, dtype=np.float64)
     out = np.zeros_like(times_s)
-    for onset, amp, seg in zip(schedule.onsets_s, schedule.amplitudes, schedule.segments):
+    for onset, amp, seg in zip(
+        schedule.onsets_s, schedule.amplitudes, schedule.segments, strict=True
+    ):
         length = sum(d for d, _ in seg)
         i0, i1 = np.searchsorted(times_s, [onset, onset + length])
         if i1 > i0:

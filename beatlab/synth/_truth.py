@@ -7,8 +7,9 @@ the summary.json keys), independently of the analysis code, on a dense noise-fre
 from __future__ import annotations
 
 import numpy as np
+from scipy import optimize
 
-__all__ = ["TRUTH_DT_S", "beat_truth", "summarize_truth", "BEAT_COLUMNS"]
+__all__ = ["BEAT_COLUMNS", "TRUTH_DT_S", "beat_truth", "summarize_truth"]
 
 #: Time step of the dense truth grid (s).
 TRUTH_DT_S = 1e-4
@@ -50,28 +51,49 @@ _MEDIAN_COLUMNS = (
 )
 
 
-def _up_crossing(t, d, level, i0, ip):
-    """Last upward crossing of ``level`` in ``d[i0:ip+1]``, linearly interpolated; or None."""
+def _refine(trace, level, t0, t1, d0, d1):
+    """Crossing time of ``level`` between grid samples, exact when ``trace`` is given."""
+    if trace is not None and (d0 - level) * (d1 - level) < 0:
+        return float(optimize.brentq(lambda x: trace(x) - level, t0, t1, xtol=1e-12))
+    return float(t0 + (level - d0) / (d1 - d0) * (t1 - t0))
+
+
+def _up_crossing(t, d, level, i0, ip, trace):
+    """Last upward crossing of ``level`` in ``d[i0:ip+1]``; or None."""
     seg = d[i0 : ip + 1]
     hits = np.flatnonzero((seg[:-1] < level) & (seg[1:] >= level))
     if hits.size == 0:
         return None
     i = i0 + hits[-1]
-    return float(t[i] + (level - d[i]) / (d[i + 1] - d[i]) * (t[i + 1] - t[i]))
+    return _refine(trace, level, t[i], t[i + 1], d[i], d[i + 1])
 
 
-def _down_crossing(t, d, level, ip, i1):
-    """Last downward crossing of ``level`` in ``d[ip:i1+1]``, linearly interpolated; or None."""
+def _down_crossing(t, d, level, ip, i1, trace):
+    """Last downward crossing of ``level`` in ``d[ip:i1+1]``; or None."""
     seg = d[ip : i1 + 1]
     hits = np.flatnonzero((seg[:-1] >= level) & (seg[1:] < level))
     if hits.size == 0:
         return None
     i = ip + hits[-1]
-    return float(t[i] + (d[i] - level) / (d[i] - d[i + 1]) * (t[i + 1] - t[i]))
+    return _refine(trace, level, t[i], t[i + 1], d[i], d[i + 1])
 
 
-def _vertex(t, d, i):
-    """Vertex of the parabola through samples i-1, i, i+1."""
+def _peak(t, d, i, trace):
+    """Time and value of the maximum near sample ``i``.
+
+    With ``trace`` the continuous maximum in ``[t[i-1], t[i+1]]``; otherwise the vertex of the
+    parabola through samples i-1, i, i+1.
+    """
+    if trace is not None:
+        res = optimize.minimize_scalar(
+            lambda x: -trace(x),
+            bounds=(t[i - 1], t[i + 1]),
+            method="bounded",
+            options={"xatol": 1e-10},
+        )
+        if -res.fun >= d[i]:
+            return float(res.x), float(-res.fun)
+        return float(t[i]), float(d[i])
     y0, y1, y2 = d[i - 1], d[i], d[i + 1]
     den = y0 - 2 * y1 + y2
     if den == 0:
@@ -85,7 +107,7 @@ def _diff(a, b):
     return None if a is None or b is None else float(a - b)
 
 
-def beat_truth(t, d, onsets_s, ead):
+def beat_truth(t, d, onsets_s, ead, *, trace=None):
     """Per-beat landmarks of a dense noise-free trace.
 
     Parameters
@@ -99,6 +121,10 @@ def beat_truth(t, d, onsets_s, ead):
         between onset ``k`` and onset ``k + 1``.
     ead : ndarray (K,) of bool
         Beats given an EAD-like second step (the ``secondary_peak`` truth).
+    trace : callable, optional
+        ``trace(t_s) -> um``, the continuous trace that ``d`` samples; refines peaks and level
+        crossings beyond the grid (continuous maximum, root of ``trace - level``). Without it,
+        the parabola vertex and linear interpolation of the definitions are used on the grid.
 
     Returns
     -------
@@ -125,9 +151,9 @@ def beat_truth(t, d, onsets_s, ead):
     beats = []
     prev_ip = 0
     for k, ip in found:
-        peak_s, peak_v = _vertex(t, d, ip)
+        peak_s, peak_v = _peak(t, d, ip, trace)
         lo = prev_ip + int(np.argmin(d[prev_ip : ip + 1]))
-        half = int(round(0.5 * _BASELINE_WINDOW_S / dt))
+        half = round(0.5 * _BASELINE_WINDOW_S / dt)
         base = float(np.median(d[max(lo - half, 0) : min(lo + half + 1, n)]))
         amp = peak_v - base
         if amp <= 0:
@@ -141,8 +167,8 @@ def beat_truth(t, d, onsets_s, ead):
                 "peak_s": peak_s,
                 "base": base,
                 "amp": amp,
-                "onset_s": _up_crossing(t, d, base + 0.1 * amp, prev_ip, ip),
-                "up50_s": _up_crossing(t, d, base + 0.5 * amp, prev_ip, ip),
+                "onset_s": _up_crossing(t, d, base + 0.1 * amp, prev_ip, ip, trace),
+                "up50_s": _up_crossing(t, d, base + 0.5 * amp, prev_ip, ip, trace),
             }
         )
         prev_ip = ip
@@ -157,8 +183,8 @@ def beat_truth(t, d, onsets_s, ead):
         else:
             i1 = n - 1
         base, amp = beat["base"], beat["amp"]
-        end_s = _down_crossing(t, d, base + 0.1 * amp, ip, i1)
-        down50 = _down_crossing(t, d, base + 0.5 * amp, ip, i1)
+        end_s = _down_crossing(t, d, base + 0.1 * amp, ip, i1, trace)
+        down50 = _down_crossing(t, d, base + 0.5 * amp, ip, i1, trace)
         ibi = beat["peak_s"] - beats[b - 1]["peak_s"] if b > 0 else None
         rows.append(
             {

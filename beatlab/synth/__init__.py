@@ -1,0 +1,29 @@
+"""Simulator of beating-culture recordings (OPD, phase or holograms) with exact ground truth.
+
+Every accuracy test of beatlab rests on it: cells warp by a known smooth contraction field at
+exact sub-pixel positions, and the truth is computed from the noise-free field by the published
+landmark definitions.
+"""
+
+from beatlab.synth._schedule import EAD_PROMINENCE, beat_segments, evaluate_activation
+from beatlab.synth._simulate import (
+    CONTRACTIONS,
+    KINDS,
+    SyntheticRecording,
+    simulate_recording,
+    write_simulation,
+)
+from beatlab.synth._truth import BEAT_COLUMNS, TRUTH_DT_S
+
+__all__ = [
+    "BEAT_COLUMNS",
+    "CONTRACTIONS",
+    "EAD_PROMINENCE",
+    "KINDS",
+    "TRUTH_DT_S",
+    "SyntheticRecording",
+    "beat_segments",
+    "evaluate_activation",
+    "simulate_recording",
+    "write_simulation",
+]

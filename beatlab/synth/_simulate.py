@@ -1,0 +1,690 @@
+"""Simulated recordings of beating cardiomyocyte cultures with exact ground truth."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from scipy import ndimage
+
+from beatlab._version import __version__
+from beatlab.errors import ConfigError, InputError
+from beatlab.io.writers import atomic_path, write_json, write_ome_tiff
+from beatlab.synth._motion import (
+    ContractionField,
+    field_displacement,
+    field_gradient,
+    warp_scene,
+)
+from beatlab.synth._scene import LAYOUTS, place_clusters, render_scene
+from beatlab.synth._schedule import evaluate_activation, make_schedule
+from beatlab.synth._truth import TRUTH_DT_S, beat_truth, summarize_truth
+
+__all__ = ["CONTRACTIONS", "KINDS", "SyntheticRecording", "simulate_recording", "write_simulation"]
+
+KINDS = ("opd", "phase", "wrapped_phase", "hologram")
+CONTRACTIONS = ("isotropic", "uniaxial")
+#: Largest allowed ``max|a| * ||grad u||``: keeps the forward map invertible and the
+#: fixed-point inversion fast.
+_MAX_GRADIENT = 0.5
+
+
+@dataclass(frozen=True)
+class SyntheticRecording:
+    """A simulated recording and its ground truth.
+
+    Attributes
+    ----------
+    frames : ndarray (T, Y, X) float32
+        OPD in nm (kind 'opd'), phase in rad ('phase', also for wrapped phase), or camera
+        counts ('hologram').
+    kind : str
+        What ``frames`` holds as stored in the file: 'opd', 'phase' or 'hologram'.
+    phase_wrapped : bool
+        True when ``frames`` is phase wrapped to (-pi, pi].
+    fps : float
+        Frame rate in Hz.
+    times_s : ndarray (T,)
+        Frame times in s (``arange(T) / fps``).
+    pixel_size_um : float
+        Sample-plane pixel size in um.
+    wavelength_nm : float
+        Illumination wavelength in nm.
+    opd_nm : ndarray (T, Y, X) float32
+        The rendered OPD frames (with all OPD noise) that ``frames`` was converted from; the
+        same array as ``frames`` for kind 'opd'.
+    rest_opd_nm : ndarray (Y, X) float32
+        The noise-free rest scene (no motion, no drift).
+    mask : ndarray (Y, X) bool
+        True cell mask at rest.
+    cluster_labels : ndarray (Y, X) int
+        Cluster (region) label 1..n of each cell pixel; 0 for background.
+    displacement_field_um : ndarray (2, Y, X) float64
+        Sum of the clusters' unit displacement fields (activation 1) at the rest pixel
+        positions; component 0 along rows (y), 1 along columns (x), in um.
+    activation : ndarray (T,) or (n_clusters, T) float64
+        Activation per frame: 1-D when all clusters share one schedule without delay,
+        otherwise one row per cluster.
+    displacement_um : ndarray (T,) float64
+        True primary trace per frame: mean over ``mask`` of ``|sum_c a_c(t) u_c(x)|`` in um
+        (noise-free, stage drift excluded).
+    region_displacement_um : ndarray (n_clusters, T) float64
+        The same mean over each cluster's labelled region.
+    stage_shift_um : ndarray (T, 2) float64
+        Rigid stage shift ``(y, x)`` of the whole field per frame in um.
+    reference_frames : ndarray (R, Y, X) float32 or None
+        Sample-free hologram frames for kind 'hologram', else None.
+    truth : dict
+        JSON-ready ground truth (see :func:`simulate_recording`).
+    """
+
+    frames: np.ndarray
+    kind: str
+    phase_wrapped: bool
+    fps: float
+    times_s: np.ndarray
+    pixel_size_um: float
+    wavelength_nm: float
+    opd_nm: np.ndarray
+    rest_opd_nm: np.ndarray
+    mask: np.ndarray
+    cluster_labels: np.ndarray
+    displacement_field_um: np.ndarray
+    activation: np.ndarray
+    displacement_um: np.ndarray
+    region_displacement_um: np.ndarray
+    stage_shift_um: np.ndarray
+    reference_frames: np.ndarray | None
+    truth: dict
+
+
+def _bad(name, value, need, fix):
+    return ConfigError(f"{name}: {need}, got {value!r}; {fix}")
+
+
+def _check_number(name, value, *, lo=None, hi=None, lo_open=False, unit=""):
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise _bad(name, value, f"expected a number{unit}", "pass a finite number") from None
+    ok = math.isfinite(v)
+    if ok and lo is not None:
+        ok = v > lo if lo_open else v >= lo
+    if ok and hi is not None:
+        ok = v <= hi
+    if not ok:
+        lo_s = "" if lo is None else (f"> {lo}" if lo_open else f">= {lo}")
+        rng_s = " and ".join(s for s in (lo_s, "" if hi is None else f"<= {hi}") if s)
+        raise _bad(name, value, f"must be {rng_s}{unit}", f"pass a value {rng_s}")
+    return v
+
+
+def _validate(p):
+    """Check the public arguments; return the normalised ones."""
+    q = dict(p)
+    q["duration_s"] = _check_number("duration_s", p["duration_s"], lo=0, lo_open=True, unit=" s")
+    q["fps"] = _check_number("fps", p["fps"], lo=0, lo_open=True, unit=" Hz")
+    n_frames = round(q["duration_s"] * q["fps"])
+    if n_frames < 3:
+        raise _bad("duration_s", p["duration_s"], "needs at least 3 frames", "record longer")
+    shape = tuple(int(v) for v in np.atleast_1d(p["shape_px"]))
+    if len(shape) != 2 or min(shape) < 16:
+        raise _bad("shape_px", p["shape_px"], "expected (Y, X) >= 16 px", "pass e.g. (128, 128)")
+    q["shape_px"] = shape
+    for name in ("pixel_size_um", "wavelength_nm", "rise_s", "relax_s"):
+        q[name] = _check_number(name, p[name], lo=0, lo_open=True)
+    if p["layout"] not in LAYOUTS:
+        raise _bad("layout", p["layout"], f"expected one of {LAYOUTS}", "pick one of those")
+    if p["kind"] not in KINDS:
+        raise _bad("kind", p["kind"], f"expected one of {KINDS}", "pick one of those")
+    if p["contraction"] not in CONTRACTIONS:
+        raise _bad(
+            "contraction", p["contraction"], f"expected one of {CONTRACTIONS}", "pick one of those"
+        )
+    n = p["n_clusters"]
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+        raise _bad("n_clusters", n, "expected an integer >= 1", "pass e.g. 1")
+    q["n_clusters"] = int(n)
+    q["rate_bpm"] = _check_number("rate_bpm", p["rate_bpm"], lo=0, hi=600, unit=" bpm")
+    q["ibi_cv"] = _check_number("ibi_cv", p["ibi_cv"], lo=0, hi=1)
+    q["cluster_delay_s"] = _check_number("cluster_delay_s", p["cluster_delay_s"], lo=0, unit=" s")
+    q["strain"] = _check_number("strain", p["strain"], lo=0, hi=0.25)
+    q["ead_level"] = _check_number("ead_level", p["ead_level"], lo=0.3, hi=0.9)
+    q["overshoot"] = _check_number("overshoot", p["overshoot"], lo=0, hi=0.15)
+    for name in ("noise_nm", "correlated_noise_nm", "jitter_nm", "drift_nm"):
+        q[name] = _check_number(name, p[name], lo=0, unit=" nm")
+    q["correlated_noise_um"] = _check_number(
+        "correlated_noise_um", p["correlated_noise_um"], lo=0, lo_open=True, unit=" um"
+    )
+    stage = np.asarray(p["stage_drift_um"], dtype=float)
+    if stage.shape != (2,) or not np.all(np.isfinite(stage)):
+        raise _bad("stage_drift_um", p["stage_drift_um"], "expected (dy, dx) in um", "pass 2")
+    q["stage_drift_um"] = (float(stage[0]), float(stage[1]))
+    if p["first_beat_s"] is not None:
+        q["first_beat_s"] = _check_number("first_beat_s", p["first_beat_s"], lo=0, unit=" s")
+    if p["cluster_radius_um"] is not None:
+        q["cluster_radius_um"] = _check_number(
+            "cluster_radius_um", p["cluster_radius_um"], lo=2, unit=" um"
+        )
+    rc = p["reference_count"]
+    if isinstance(rc, bool) or not isinstance(rc, (int, np.integer)) or rc < 1:
+        raise _bad("reference_count", rc, "expected an integer >= 1", "pass e.g. 4")
+
+    if p["beat_times_s"] is not None:
+        bt = np.asarray(p["beat_times_s"], dtype=float).ravel()
+        if not np.all(np.isfinite(bt)) or np.any(bt < 0) or np.any(np.diff(bt) <= 0):
+            raise _bad(
+                "beat_times_s",
+                p["beat_times_s"],
+                "expected increasing onset times >= 0 s",
+                "sort them and drop duplicates",
+            )
+        if p["ibi_cv"] or p["cluster_rates_bpm"] is not None:
+            raise ConfigError(
+                "beat_times_s: explicit beat times exclude ibi_cv and cluster_rates_bpm; "
+                "pass either explicit times or rates"
+            )
+        q["beat_times_s"] = tuple(float(v) for v in bt)
+    if p["cluster_rates_bpm"] is not None:
+        rates = tuple(float(v) for v in np.atleast_1d(p["cluster_rates_bpm"]))
+        if len(rates) != q["n_clusters"] or not all(math.isfinite(r) and r >= 0 for r in rates):
+            raise _bad(
+                "cluster_rates_bpm",
+                p["cluster_rates_bpm"],
+                f"expected {q['n_clusters']} rates >= 0 bpm (one per cluster)",
+                "pass one rate per cluster",
+            )
+        q["cluster_rates_bpm"] = rates
+    if p["amplitude_pattern"] is not None:
+        pat = tuple(float(v) for v in np.atleast_1d(p["amplitude_pattern"]))
+        if not pat or not all(math.isfinite(v) and 0 < v <= 3 for v in pat):
+            raise _bad(
+                "amplitude_pattern",
+                p["amplitude_pattern"],
+                "expected multipliers in (0, 3]",
+                "pass e.g. (1.0, 0.55)",
+            )
+        q["amplitude_pattern"] = pat
+    if p["ead_beats"] is not None:
+        eb = tuple(int(v) for v in np.atleast_1d(p["ead_beats"]))
+        if any(v < 0 for v in eb):
+            raise _bad("ead_beats", p["ead_beats"], "expected 0-based beat indices", "use >= 0")
+        q["ead_beats"] = eb
+    return q
+
+
+def _as_generator(rng):
+    if isinstance(rng, np.random.Generator):
+        return rng
+    if isinstance(rng, (int, np.integer)) and not isinstance(rng, bool):
+        return np.random.default_rng(int(rng))
+    raise ConfigError(
+        f"rng: expected a numpy.random.Generator or an int seed, got {type(rng).__name__}; "
+        "pass rng=np.random.default_rng(seed)"
+    )
+
+
+def _correlated_unit_noise(shape, sigma_px, rng):
+    """Gaussian-filtered white noise scaled to unit RMS (exact kernel norm)."""
+    delta = np.zeros(shape)
+    delta[shape[0] // 2, shape[1] // 2] = 1.0
+    norm = np.sqrt(np.sum(ndimage.gaussian_filter(delta, sigma_px, mode="wrap") ** 2))
+    return ndimage.gaussian_filter(rng.standard_normal(shape), sigma_px, mode="wrap") / norm
+
+
+def simulate_recording(
+    *,
+    duration_s=10.0,
+    fps=30.0,
+    shape_px=(128, 128),
+    pixel_size_um=0.5,
+    wavelength_nm=632.8,
+    layout="clusters",
+    n_clusters=1,
+    rate_bpm=60.0,
+    beat_times_s=None,
+    ibi_cv=0.0,
+    cluster_rates_bpm=None,
+    cluster_delay_s=0.0,
+    first_beat_s=None,
+    rise_s=0.15,
+    relax_s=0.30,
+    strain=0.03,
+    contraction="isotropic",
+    cluster_radius_um=None,
+    amplitude_pattern=None,
+    ead_beats=None,
+    ead_level=0.5,
+    overshoot=0.0,
+    noise_nm=1.0,
+    correlated_noise_nm=0.0,
+    correlated_noise_um=2.0,
+    jitter_nm=0.0,
+    drift_nm=0.0,
+    stage_drift_um=(0.0, 0.0),
+    kind="opd",
+    reference_count=4,
+    rng,
+):
+    """Simulate a quantitative-phase time-lapse of a beating culture with exact ground truth.
+
+    Parameters
+    ----------
+    duration_s : float
+        Length in s; ``T = round(duration_s * fps)`` frames at ``t = arange(T) / fps``.
+    fps : float
+        Frame rate in Hz.
+    shape_px : tuple of int
+        Frame shape ``(Y, X)`` in pixels.
+    pixel_size_um : float
+        Sample-plane pixel size in um.
+    wavelength_nm : float
+        Illumination wavelength in nm (phase = OPD * 2 pi / wavelength).
+    layout : {'clusters', 'confluent'}
+        Compact clusters of elongated cells on a cell-free background (OPD 0), or a field
+        fully covered by cells with ``n_clusters`` contraction centres.
+    n_clusters : int
+        Number of clusters (contraction centres); their field supports never overlap.
+    rate_bpm : float
+        Beating rate; 0 means no beating.
+    beat_times_s : sequence of float, optional
+        Explicit activation onsets (start of the rise) in s; overrides ``rate_bpm``; ``[]``
+        means no beating.
+    ibi_cv : float
+        Coefficient of variation of log-normal intervals (0: regular).
+    cluster_rates_bpm : sequence of float, optional
+        One independent rate per cluster (each draws its own intervals).
+    cluster_delay_s : float
+        Cluster ``c`` (0-based) beats ``c * cluster_delay_s`` later (coupled propagation).
+    first_beat_s : float, optional
+        First activation onset; default ``0.5 * min(60 / rate, 2)`` s.
+    rise_s : float
+        Onset-to-peak time of the activation in s (half-cosine rise).
+    relax_s : float
+        Peak-to-rest time of one relaxation step in s (half-cosine fall).
+    strain : float
+        Fractional shortening inside a cluster's core at activation 1.
+    contraction : {'isotropic', 'uniaxial'}
+        Contraction toward the centre in all directions, or only along the cluster's cell axis.
+    cluster_radius_um : float, optional
+        Radius of a cell cluster (layout 'clusters').
+    amplitude_pattern : sequence of float, optional
+        Per-beat activation multipliers, cycled (``(1.0, 0.55)``: alternans).
+    ead_beats : sequence of int, optional
+        0-based beat indices that get an EAD-like second step: relaxation to
+        ``ead_level - 0.25``, re-rise to ``ead_level``, then relaxation to rest.
+    ead_level : float
+        Height of the EAD-like secondary maximum as a fraction of the amplitude (0.3-0.9).
+    overshoot : float
+        Relaxation past rest to ``-overshoot`` of the amplitude (cells lengthen briefly;
+        ``|displacement|`` shows a small bump below 20 % of the amplitude: not an EAD).
+    noise_nm : float
+        RMS of per-pixel white OPD noise.
+    correlated_noise_nm, correlated_noise_um : float
+        RMS and Gaussian correlation length of spatially correlated noise, new every frame.
+    jitter_nm : float
+        RMS of a per-frame global OPD offset.
+    drift_nm : float
+        Slow background drift (offset plus tilt) growing linearly to at most ``drift_nm``.
+    stage_drift_um : tuple of float
+        Rigid translation ``(y, x)`` of the whole field, growing linearly to this value at the
+        last frame; not contraction.
+    kind : {'opd', 'phase', 'wrapped_phase', 'hologram'}
+        Output quantity; holograms come from :func:`beatlab.holography.forward.render_hologram`.
+    reference_count : int
+        Number of sample-free hologram frames for kind 'hologram'.
+    rng : numpy.random.Generator or int
+        Source of all randomness (an int is a seed). Scene, schedule, noise and camera use
+        independent child streams, so changing a noise level keeps the same cells and beats.
+
+    Returns
+    -------
+    SyntheticRecording
+        Frames plus the true mask, labels, unit field, activation and ``truth``: a JSON-ready
+        dict with ``beats`` and ``summary`` of the whole-mask trace (None when clusters beat at
+        independent rates), ``regions`` (label, area, centroid, beats, summary per cluster),
+        ``schedules``, ``clusters`` and ``parameters``.
+
+    Raises
+    ------
+    ConfigError
+        An argument is out of range, clusters do not fit, or the field is too steep to invert.
+
+    Notes
+    -----
+    Frames are rendered by inverting the forward map ``x = x0 + a u(x0) + s`` with a fixed-point
+    iteration and sampling the rest scene at ``x0`` with cubic B-splines (Unser 1999, IEEE
+    Signal Process Mag 16(6):22); OPD is divided by ``det(I + a grad u)`` so dry mass is
+    conserved (Barer 1952, Nature 169:366: OPD integrates to dry mass). The truth uses the
+    per-beat landmark definitions of the design notes on a dense (0.1 ms) noise-free trace
+    ``D(t) = mean_mask |a(t) u(x)|``.
+
+    Examples
+    --------
+    >>> sim = simulate_recording(duration_s=2.0, shape_px=(64, 64), rng=1)
+    >>> sim.frames.shape, sim.truth["summary"]["beat_count"]
+    ((60, 64, 64), 2)
+    """
+    given = dict(locals())
+    given.pop("rng")
+    p = _validate(given)
+    seed = int(rng) if isinstance(rng, (int, np.integer)) and not isinstance(rng, bool) else None
+    gen = _as_generator(rng)
+    rng_scene, rng_beats, rng_noise, rng_camera = gen.spawn(4)
+
+    fps, px = p["fps"], p["pixel_size_um"]
+    ny, nx = p["shape_px"]
+    n_frames = round(p["duration_s"] * fps)
+    times = np.arange(n_frames) / fps
+    t_end = float(times[-1])
+    n_cl = p["n_clusters"]
+
+    geometry = place_clusters(
+        p["layout"],
+        n_cl,
+        (ny * px, nx * px),
+        cluster_radius_um=p["cluster_radius_um"],
+        rng=rng_scene,
+    )
+    fields = [
+        ContractionField(
+            g.centre_um,
+            g.core_um,
+            g.outer_um,
+            p["strain"],
+            None
+            if p["contraction"] == "isotropic"
+            else (float(np.sin(g.angle_rad)), float(np.cos(g.angle_rad))),
+        )
+        for g in geometry
+    ]
+    schedules = make_schedule(
+        n_clusters=n_cl,
+        duration_s=p["duration_s"],
+        rate_bpm=p["rate_bpm"],
+        beat_times_s=p["beat_times_s"],
+        ibi_cv=p["ibi_cv"],
+        cluster_rates_bpm=p["cluster_rates_bpm"],
+        cluster_delay_s=p["cluster_delay_s"],
+        first_beat_s=p["first_beat_s"],
+        rise_s=p["rise_s"],
+        relax_s=p["relax_s"],
+        amplitude_pattern=p["amplitude_pattern"],
+        ead_beats=p["ead_beats"],
+        ead_level=p["ead_level"],
+        overshoot=p["overshoot"],
+        rng=rng_beats,
+    )
+    t_dense = np.linspace(0.0, t_end, round(t_end / TRUTH_DT_S) + 1)
+    act_dense = np.array([evaluate_activation(t_dense, s) for s in schedules])
+    act_frames = np.array([evaluate_activation(times, s) for s in schedules])
+    a_max = max(float(np.max(np.abs(act_dense))), float(np.max(np.abs(act_frames))))
+
+    stage_end = np.array(p["stage_drift_um"])
+    stage = times[:, None] / t_end * stage_end[None, :]
+    reach_um = float(np.hypot(*stage_end)) + a_max * p["strain"] * max(
+        g.outer_um for g in geometry
+    )
+    pad = math.ceil(reach_um / px) + 8
+    canvas = (ny + 2 * pad, nx + 2 * pad)
+    scene, footprint = render_scene(
+        p["layout"], geometry, canvas, pad_px=pad, pixel_size_um=px, rng=rng_scene
+    )
+
+    # the forward map must be invertible everywhere the inversion may look
+    cy, cx = np.mgrid[0 : canvas[0] : 2, 0 : canvas[1] : 2].astype(float)
+    g = field_gradient(fields, [1.0] * n_cl, (cy - pad) * px, (cx - pad) * px)
+    gtg = np.stack([g[0] ** 2 + g[2] ** 2, g[0] * g[1] + g[2] * g[3], g[1] ** 2 + g[3] ** 2])
+    lam = 0.5 * (gtg[0] + gtg[2]) + np.sqrt(0.25 * (gtg[0] - gtg[2]) ** 2 + gtg[1] ** 2)
+    steep = a_max * float(np.sqrt(lam.max()))
+    if steep > _MAX_GRADIENT:
+        raise ConfigError(
+            f"strain: {p['strain']!r} with peak activation {a_max:.3g} makes the displacement "
+            f"gradient {steep:.3g} (limit {_MAX_GRADIENT}); pass a smaller strain or amplitude"
+        )
+
+    gy, gx = np.mgrid[0:ny, 0:nx].astype(np.float64) * px
+    mask = footprint[pad : pad + ny, pad : pad + nx].copy()
+    dist = np.stack([np.hypot(gy - f.centre_um[0], gx - f.centre_um[1]) for f in fields])
+    labels = np.where(mask, np.argmin(dist, axis=0) + 1, 0).astype(np.int32)
+    unit = [np.stack(field_displacement([f], [1.0], gy, gx)) for f in fields]
+    unit_mag = np.array([np.hypot(u[0], u[1]) for u in unit])
+    if np.any(np.count_nonzero(unit_mag > 0, axis=0) > 1):
+        raise ConfigError("n_clusters: contraction fields overlap; use fewer clusters")
+    field_um = np.sum(unit, axis=0)
+
+    # true traces: |sum_c a_c u_c| = sum_c |a_c| |u_c| because the supports are disjoint
+    n_mask = max(int(mask.sum()), 1)
+    w_mask = unit_mag[:, mask].sum(axis=1) / n_mask
+    d_dense = np.abs(act_dense).T @ w_mask
+    d_frames = np.abs(act_frames).T @ w_mask
+    region_w = []
+    for c in range(n_cl):
+        sel = labels == c + 1
+        region_w.append(unit_mag[:, sel].sum(axis=1) / max(int(sel.sum()), 1))
+    region_w = np.array(region_w)
+    region_frames = region_w @ np.abs(act_frames)
+
+    def trace_of(weights):
+        def trace(t_s):
+            tt = np.atleast_1d(np.asarray(t_s, dtype=float))
+            acts = np.array([evaluate_activation(tt, s) for s in schedules])
+            return float((weights @ np.abs(acts))[0])
+
+        return trace
+
+    shared = p["cluster_rates_bpm"] is None
+    regions = []
+    for c in range(n_cl):
+        sel = labels == c + 1
+        rows = beat_truth(
+            t_dense,
+            region_w[c] @ np.abs(act_dense),
+            schedules[c].onsets_s,
+            schedules[c].ead,
+            trace=trace_of(region_w[c]),
+        )
+        ys, xs = np.nonzero(sel)
+        regions.append(
+            {
+                "label": c + 1,
+                "area_px": int(sel.sum()),
+                "centroid_px": [float(ys.mean()), float(xs.mean())] if ys.size else None,
+                "centre_um": list(geometry[c].centre_um),
+                "core_um": geometry[c].core_um,
+                "outer_um": geometry[c].outer_um,
+                "mean_unit_displacement_um": float(region_w[c, c]),
+                "beats": rows,
+                "summary": summarize_truth(rows, t_end_s=t_end),
+            }
+        )
+    if shared:
+        beats = beat_truth(
+            t_dense, d_dense, schedules[0].onsets_s, schedules[0].ead, trace=trace_of(w_mask)
+        )
+        summary = summarize_truth(beats, t_end_s=t_end)
+    else:
+        beats, summary = None, None
+
+    # render
+    coeffs = ndimage.spline_filter(scene, order=3)
+    rest = scene[pad : pad + ny, pad : pad + nx]
+    opd = np.empty((n_frames, ny, nx), dtype=np.float32)
+    ramp_dir = rng_noise.uniform(0, 2 * np.pi)
+    ramp = (gy - gy.mean()) * np.cos(ramp_dir) + (gx - gx.mean()) * np.sin(ramp_dir)
+    ramp = ramp / np.abs(ramp).max()
+    sigma_px = p["correlated_noise_um"] / px
+    for i in range(n_frames):
+        acts = act_frames[:, i]
+        if not np.any(acts) and not np.any(stage[i]):
+            frame = rest.copy()
+        else:
+            frame = warp_scene(
+                coeffs, fields, acts, stage[i], grid_um=(gy, gx), pad_px=pad, pixel_size_um=px
+            )
+        if p["drift_nm"]:
+            frame += p["drift_nm"] * times[i] / t_end * (0.7 + 0.3 * ramp)
+        if p["noise_nm"]:
+            frame += rng_noise.normal(0.0, p["noise_nm"], frame.shape)
+        if p["correlated_noise_nm"]:
+            frame += p["correlated_noise_nm"] * _correlated_unit_noise(
+                frame.shape, sigma_px, rng_noise
+            )
+        if p["jitter_nm"]:
+            frame += rng_noise.normal(0.0, p["jitter_nm"])
+        opd[i] = frame
+
+    wl = p["wavelength_nm"]
+    reference = None
+    if p["kind"] == "opd":
+        frames, stored = opd, "opd"
+    elif p["kind"] in ("phase", "wrapped_phase"):
+        phase = opd.astype(np.float64) * (2.0 * np.pi / wl)
+        if p["kind"] == "wrapped_phase":
+            phase = np.angle(np.exp(1j * phase))
+        frames, stored = phase.astype(np.float32), "phase"
+    else:
+        from beatlab.holography.forward import render_hologram, render_reference
+
+        frames = np.stack(
+            [render_hologram(f, wavelength_nm=wl, rng=rng_camera) for f in opd]
+        ).astype(np.float32)
+        reference = np.stack(
+            [
+                render_reference((ny, nx), wavelength_nm=wl, rng=rng_camera)
+                for _ in range(int(p["reference_count"]))
+            ]
+        ).astype(np.float32)
+        stored = "hologram"
+
+    single = n_cl == 1 or (shared and p["cluster_delay_s"] == 0)
+    parameters = {k: (list(v) if isinstance(v, tuple) else v) for k, v in p.items()}
+    parameters["seed"] = seed
+    truth = {
+        "simulator": "beatlab.synth",
+        "beatlab_version": __version__,
+        "kind": stored,
+        "phase_wrapped": p["kind"] == "wrapped_phase",
+        "fps": fps,
+        "pixel_size_um": px,
+        "wavelength_nm": wl,
+        "n_frames": n_frames,
+        "shape_px": [ny, nx],
+        "layout": p["layout"],
+        "parameters": parameters,
+        "mask_area_px": int(mask.sum()),
+        "mean_unit_displacement_um": float(w_mask.sum()),
+        "max_activation": a_max,
+        "stage_drift_um": list(p["stage_drift_um"]),
+        "schedules": [dict(label=c + 1, **s.to_dict()) for c, s in enumerate(schedules)],
+        "beats": beats,
+        "summary": summary,
+        "regions": regions,
+        "definitions": {
+            "displacement_um": "mean over the true rest mask of |sum_c a_c(t) u_c(x0)| (um), "
+            "noise-free, stage drift excluded",
+            "beat_onsets": "schedule onsets are activation onsets (start of the rise)",
+            "truth_dt_s": TRUTH_DT_S,
+            "field_components": "displacement_field_um[0] along rows (y), [1] along columns (x)",
+        },
+    }
+    return SyntheticRecording(
+        frames=frames,
+        kind=stored,
+        phase_wrapped=p["kind"] == "wrapped_phase",
+        fps=fps,
+        times_s=times,
+        pixel_size_um=px,
+        wavelength_nm=wl,
+        opd_nm=opd,
+        rest_opd_nm=rest.astype(np.float32),
+        mask=mask,
+        cluster_labels=labels,
+        displacement_field_um=field_um,
+        activation=act_frames[0].copy() if single else act_frames,
+        displacement_um=d_frames,
+        region_displacement_um=region_frames,
+        stage_shift_um=stage,
+        reference_frames=reference,
+        truth=truth,
+    )
+
+
+_SUFFIXES = (".ome.tiff", ".ome.tif", ".tiff", ".tif")
+
+
+def write_simulation(sim: SyntheticRecording, path) -> dict[str, Path]:
+    """Write a simulated recording as OME-TIFF with its ground truth beside it.
+
+    Parameters
+    ----------
+    sim : SyntheticRecording
+    path : path-like
+        Output recording, ending in ``.ome.tif`` (or ``.tif``/``.tiff``). Beside it go
+        ``<stem>.truth.json``, ``<stem>.truth.npz`` (per-frame true traces, activation, mask,
+        labels, unit field, stage shift, rest scene) and, for holograms,
+        ``<stem>.reference.ome.tif``.
+
+    Returns
+    -------
+    dict of str to Path
+        Keys ``recording``, ``truth``, ``truth_arrays`` and (holograms) ``reference``.
+
+    Raises
+    ------
+    InputError
+        ``path`` does not end in a TIFF suffix.
+    """
+    path = Path(path)
+    name = path.name
+    suffix = next((s for s in _SUFFIXES if name.lower().endswith(s)), None)
+    if suffix is None:
+        raise InputError(f"path: expected a name ending in .ome.tif, got {name!r}; add .ome.tif")
+    stem = name[: -len(suffix)]
+    out = {
+        "recording": path,
+        "truth": path.with_name(stem + ".truth.json"),
+        "truth_arrays": path.with_name(stem + ".truth.npz"),
+    }
+    if sim.reference_frames is not None:
+        out["reference"] = path.with_name(stem + ".reference.ome.tif")
+    extra = {"simulated": "true", "phase_wrapped": str(bool(sim.phase_wrapped)).lower()}
+    write_ome_tiff(
+        path,
+        sim.frames,
+        fps=sim.fps,
+        pixel_size_um=sim.pixel_size_um,
+        kind=sim.kind,
+        wavelength_nm=sim.wavelength_nm,
+        extra=extra,
+    )
+    if sim.reference_frames is not None:
+        write_ome_tiff(
+            out["reference"],
+            sim.reference_frames,
+            fps=sim.fps,
+            pixel_size_um=sim.pixel_size_um,
+            kind="hologram",
+            wavelength_nm=sim.wavelength_nm,
+            extra={"simulated": "true", "reference": "true"},
+        )
+    activation = sim.activation if sim.activation.ndim == 2 else sim.activation[None, :]
+    with atomic_path(out["truth_arrays"]) as tmp, open(tmp, "wb") as fh:
+        np.savez_compressed(
+            fh,
+            times_s=sim.times_s,
+            displacement_um=sim.displacement_um,
+            region_displacement_um=sim.region_displacement_um,
+            activation=activation,
+            mask=sim.mask,
+            cluster_labels=sim.cluster_labels,
+            displacement_field_um=sim.displacement_field_um,
+            stage_shift_um=sim.stage_shift_um,
+            rest_opd_nm=sim.rest_opd_nm,
+        )
+    truth = dict(sim.truth)
+    truth["files"] = {k: v.name for k, v in out.items()}
+    write_json(out["truth"], truth)
+    return out
