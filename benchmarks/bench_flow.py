@@ -5,6 +5,7 @@ Usage::
     python benchmarks/bench_flow.py                 # ms/frame at 256 and 512 px
     python benchmarks/bench_flow.py --sizes 256 512 1024 --frames 20
     python benchmarks/bench_flow.py --study         # gain and noise-floor tables
+    python benchmarks/bench_flow.py --workers 1     # skip the threaded-frames row
 
 The speed table times ``FlowTracker.displacement`` (8-bit mapping, coarse flow, float
 refinement, rigid shift, mean magnitude) per frame, single thread, for each method/preset and
@@ -17,6 +18,7 @@ from __future__ import annotations
 
 import argparse
 import time
+from concurrent.futures import ThreadPoolExecutor
 
 import cv2
 import numpy as np
@@ -71,7 +73,7 @@ CONFIGS = [
 ]
 
 
-def speed_table(sizes: list[int], frames: int, rng: np.random.Generator) -> None:
+def speed_table(sizes: list[int], frames: int, workers: int, rng: np.random.Generator) -> None:
     print(f"{'size':>6} {'method':>10} {'preset':>10} {'refine':>6} {'ms/frame':>9}")
     for n in sizes:
         opd, mask = make_opd(rng, n, 1.0)
@@ -90,6 +92,15 @@ def speed_table(sizes: list[int], frames: int, rng: np.random.Generator) -> None
                 tracker.displacement(stack[i % len(stack)])
             ms = (time.perf_counter() - start) / frames * 1e3
             print(f"{n:>6} {method:>10} {preset:>10} {refine:>6} {ms:>9.1f}")
+        if workers > 1:
+            # default configuration, frames spread over threads (measure is thread-safe)
+            tracker = FlowTracker(opd, mask, pixel_size_um=0.5)
+            with ThreadPoolExecutor(workers) as pool:
+                start = time.perf_counter()
+                list(pool.map(tracker.displacement, [stack[i % 3] for i in range(frames)]))
+                ms = (time.perf_counter() - start) / frames * 1e3
+            label = f"dis x{workers}thr"
+            print(f"{n:>6} {label:>10} {'fast':>10} {2:>6} {ms:>9.1f}")
 
 
 def study(rng_seed: int) -> None:
@@ -155,6 +166,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--sizes", type=int, nargs="+", default=[256, 512])
     parser.add_argument("--frames", type=int, default=10, help="timed frames per row")
     parser.add_argument("--threads", type=int, default=1, help="OpenCV threads")
+    parser.add_argument("--workers", type=int, default=2, help="frame threads (extra row)")
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--study", action="store_true", help="print gain/floor tables")
     args = parser.parse_args(argv)
@@ -162,7 +174,7 @@ def main(argv: list[str] | None = None) -> None:
     if args.study:
         study(args.seed)
     else:
-        speed_table(args.sizes, args.frames, np.random.default_rng(args.seed))
+        speed_table(args.sizes, args.frames, args.workers, np.random.default_rng(args.seed))
 
 
 if __name__ == "__main__":

@@ -24,7 +24,7 @@ def detect_beats(
     max_rate_bpm=240.0,
     min_snr=6.0,
     min_relative_prominence=0.2,
-    min_beat_snr=3.5,
+    min_beat_snr=5.0,
     min_rise_fraction=0.5,
     smooth_s=0.05,
     rise_window_s=0.5,
@@ -46,7 +46,8 @@ def detect_beats(
         seconds compete and the more prominent one wins.
     min_snr : float
         The recording beats only if its typical beat prominence (the `reference_quantile` of
-        the candidate prominences) reaches `min_snr` noise SDs of the smoothed trace.
+        the candidate prominences above this gate) reaches `min_snr` noise SDs of the
+        unsmoothed trace, i.e. a beat amplitude-to-noise ratio of about `min_snr`.
         Otherwise the result is empty (pure noise, drift, a flat trace).
     min_relative_prominence : float
         Each beat needs a prominence of at least this fraction of the typical beat prominence
@@ -146,7 +147,7 @@ def detect_beats(
     strength = np.where(left_cut & ~right_cut, fall, strength)
     strength = np.where(left_cut & right_cut, np.maximum(rise, fall), strength)
 
-    gated = strength[strength >= max(min_snr * sigma_smooth, np.finfo(float).tiny)]
+    gated = strength[strength >= max(min_snr * sigma, np.finfo(float).tiny)]
     if gated.size == 0:
         return empty
     reference = float(np.quantile(gated, reference_quantile))

@@ -69,9 +69,7 @@ def _flow_dis(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str) -
     return engine.calc(reference_u8, moving_u8, None)
 
 
-def _flow_farneback(
-    reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str
-) -> np.ndarray:
+def _flow_farneback(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str) -> np.ndarray:
     _check_choice("preset", preset, FARNEBACK_PRESETS)
     pyr_scale, levels, winsize, iterations, poly_n, poly_sigma = FARNEBACK_PRESETS[preset]
     return cv2.calcOpticalFlowFarneback(

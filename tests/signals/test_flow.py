@@ -93,7 +93,7 @@ def test_raw_opencv_gain_is_off_so_refinement_matters(contrast):
 @pytest.mark.parametrize("shift_px", [(0.37, -0.62), (-1.8, 2.25)])
 def test_pure_shift_agrees_with_phase_cross_correlation(method, shift_px):
     opd, _ = make_opd(np.random.default_rng(3))
-    frame = warp_exact(opd, np.zeros(opd.shape + (2,)), shift=shift_px)
+    frame = warp_exact(opd, np.zeros((*opd.shape, 2)), shift=shift_px)
     scale = flow_scale(opd)
     ref_u8, _ = to_uint8(opd, scale)
     mov_u8, _ = to_uint8(frame, scale)
@@ -114,7 +114,7 @@ def test_zero_motion_noise_free_gives_zero(method):
     value, shift, flow = tracker.displacement(opd.copy())
     assert value < 1e-4 * PIXEL_UM
     np.testing.assert_allclose(shift, 0.0, atol=1e-4)
-    assert flow.shape == opd.shape + (2,) and flow.dtype == np.float32
+    assert flow.shape == (*opd.shape, 2) and flow.dtype == np.float32
 
 
 @pytest.mark.parametrize(
@@ -273,7 +273,7 @@ def test_refine_flow_does_not_mutate_inputs_and_converges():
     opd, mask = make_opd(np.random.default_rng(21))
     field = contraction_field(0.5)
     frame = warp_exact(opd, field)
-    start = np.zeros(opd.shape + (2,), np.float32)
+    start = np.zeros((*opd.shape, 2), np.float32)
     before = (opd.copy(), frame.copy(), start.copy())
     refined = refine_flow(opd, frame, start, iterations=3)
     for a, b in zip(before, (opd, frame, start), strict=True):
