@@ -210,10 +210,13 @@ def analyze(
     if not np.isfinite(template).any():
         raise InputError(f"{rec.source}: the rest template is all NaN; nothing to analyse")
     m_cfg = cfg["mask"]
+    template_noise = (float(np.sqrt(np.nanmedian(rest.noise_var) / rest.n_frames_used))
+                      if rest.n_frames_used > 1 else None)
     cells = make_cell_mask(template, pixel_size_um=px_um, method=m_cfg["method"],
                            threshold_sigma=m_cfg["threshold_sigma"],
                            min_area_um2=m_cfg["min_area_um2"],
-                           confluent_fraction=m_cfg["confluent_fraction"])
+                           confluent_fraction=m_cfg["confluent_fraction"],
+                           noise_nm=template_noise)
     mask = cells.mask
     if not mask.any():
         raise InputError(f"{rec.source}: no cells found in the field (mask empty); try "

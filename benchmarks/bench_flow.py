@@ -64,6 +64,9 @@ def warp_exact(image: np.ndarray, displacement: np.ndarray) -> np.ndarray:
 
 
 CONFIGS = [
+    ("dis", "ultrafast", 0),
+    ("dis", "medium", 0),
+    ("farneback", "fast", 0),
     ("dis", "ultrafast", 2),
     ("dis", "fast", 0),
     ("dis", "fast", 1),

@@ -147,7 +147,7 @@ def detect_beats(
     strength = np.where(left_cut & ~right_cut, fall, strength)
     strength = np.where(left_cut & right_cut, np.maximum(rise, fall), strength)
 
-    gated = strength[strength >= max(min_snr * sigma, np.finfo(float).tiny)]
+    gated = strength[strength >= max(min_snr * sigma_smooth, np.finfo(float).tiny)]
     if gated.size == 0:
         return empty
     reference = float(np.quantile(gated, reference_quantile))

@@ -248,22 +248,30 @@ class SidebandFilter:
         spectrum = scipy.fft.rfft2(frame, workers=self.workers)
         return self._filter_spectrum(spectrum)
 
-    def band_limit(self, field):
+    def band_limit(self, field, *, carrier_cycles_per_px=None):
         """Pass a complex field on the camera grid through the same window, onto the output grid.
 
-        The field is treated as the object wave carried by this side-band: it is modulated by
-        the carrier, filtered exactly as :meth:`demodulate` filters a hologram and returned on
-        the output grid. Used to compare a reconstruction with a known truth.
+        The field is treated as the object wave carried by a side-band: it is modulated by the
+        carrier, filtered exactly as :meth:`demodulate` filters a hologram and returned on the
+        output grid. Used to compare a reconstruction with a known truth.
 
         Parameters
         ----------
         field : array_like, shape (Y, X), complex
             Object field, e.g. ``exp(1j * phase_rad)``.
+        carrier_cycles_per_px : tuple of float, optional
+            Carrier ``(fy, fx)`` that carries the field (the true one of a simulated
+            hologram); default the filter's own centre.
 
         Returns
         -------
         numpy.ndarray, shape (Y', X'), complex64
             The band-limited field, scaled like :meth:`demodulate` (times 1, not counts).
+
+        Raises
+        ------
+        InputError
+            The field shape differs from the planned one.
         """
         obj = np.asarray(field, dtype=np.complex128)
         if obj.shape != self.shape:
@@ -271,7 +279,7 @@ class SidebandFilter:
         ny, nx = self.shape
         yy = np.arange(ny)[:, None]
         xx = np.arange(nx)[None, :]
-        k = self.carrier_cycles_per_px
+        k = self.carrier_cycles_per_px if carrier_cycles_per_px is None else carrier_cycles_per_px
         carried = obj * np.exp(2j * np.pi * (k[0] * yy + k[1] * xx))
         full = scipy.fft.fft2(carried, workers=self.workers)
         band = np.take(full.reshape(-1), self._full_flat()) * self._window

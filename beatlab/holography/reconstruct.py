@@ -215,8 +215,21 @@ class OffAxisReconstructor:
                 f"refocus_um: got {refocus_um!r}; pass None, a distance in um or 'auto'"
             )
         frame0 = np.asarray(hologram0)
+        refs = None
+        if reference is not None:
+            refs = np.asarray(reference)
+            if refs.ndim == 2:
+                refs = refs[None]
+            if refs.ndim != 3 or refs.shape[1:] != frame0.shape:
+                raise InputError(
+                    f"reference: expected (Y, X) or (R, Y, X) frames with (Y, X) = "
+                    f"{frame0.shape}, got shape {refs.shape}"
+                )
+        # a sample-free frame shows the carrier of the optics, unbiased by the cells
         sb = locate_sideband(
-            frame0, exclusion_cycles_per_px=exclusion_cycles_per_px, workers=workers
+            frame0 if refs is None else refs[0],
+            exclusion_cycles_per_px=exclusion_cycles_per_px,
+            workers=workers,
         )
         k = sb.carrier_cycles_per_px
         if na is not None:
@@ -234,17 +247,9 @@ class OffAxisReconstructor:
         filt = SidebandFilter(frame0.shape, k, r, taper=taper, workers=workers)
         field0 = filt.demodulate(frame0).astype(np.complex128)
         # without a reference, the frame edges (where a non-integer carrier wraps round) ring
-        interior = _interior(filt.output_shape, 0 if reference is not None else _EDGE_PX)
+        interior = _interior(filt.output_shape, 0 if refs is not None else _EDGE_PX)
 
-        if reference is not None:
-            refs = np.asarray(reference)
-            if refs.ndim == 2:
-                refs = refs[None]
-            if refs.ndim != 3 or refs.shape[1:] != frame0.shape:
-                raise InputError(
-                    f"reference: expected (Y, X) or (R, Y, X) frames with (Y, X) = "
-                    f"{frame0.shape}, got shape {refs.shape}"
-                )
+        if refs is not None:
             ref_field = average_reference_field(filt.demodulate(r_) for r_ in refs)
             power = np.abs(ref_field) ** 2
             pre = np.conj(ref_field) / (power + 1e-12 * power.mean())

@@ -86,6 +86,9 @@ FLOW_METHODS: dict[str, Callable[..., np.ndarray]] = {
 }
 
 
+_PRESETS: dict[str, dict] = {"dis": DIS_PRESETS, "farneback": FARNEBACK_PRESETS}
+
+
 class FlowMeasurement(NamedTuple):
     """Result of :meth:`FlowTracker.measure` for one frame."""
 
@@ -236,7 +239,8 @@ def to_uint8(image_nm: np.ndarray, scale: tuple[float, float]) -> tuple[np.ndarr
     image_u8 : ndarray of uint8, shape (Y, X)
         Rounded, clipped grey values; NaN pixels become mid-grey (128).
     clipped_fraction : float
-        Share of the finite pixels outside ``[lo_nm, hi_nm]`` (0 when there are none).
+        Share of the finite pixels saturated by the mapping, i.e. more than half a grey
+        level outside ``[lo_nm, hi_nm]`` (0 when there is no finite pixel).
 
     Raises
     ------
@@ -525,27 +529,35 @@ class FlowTracker:
 
     Notes
     -----
-    Choices, measured with ``tests/signals/test_flow.py`` and the study behind it (textured
-    128 px OPD images, 40-220 nm cells with 6-50 nm texture std, a radial contraction field
-    warped exactly by ``scipy.ndimage.map_coordinates`` order 3; gain = mean measured /
-    mean true magnitude over the mask):
+    Choices, measured with ``tests/signals/test_flow.py`` and
+    ``benchmarks/bench_flow.py --study`` (128 px OPD images: 40-220 nm cells with a smooth
+    texture of 6-50 nm std, i.e. contrast factors 0.25-2; a radial contraction field of
+    25 px radius warped exactly by ``scipy.ndimage.map_coordinates`` order 3 after inverting
+    the forward map; gain = mean measured / mean true magnitude over the mask):
 
-    - raw OpenCV flow on the 8-bit pair reads 0.74-1.10 of the truth over 0.1-3 px depending
-      on preset and texture contrast (DIS ultrafast 0.76-0.88, fast 0.74-0.96, medium
-      0.90-1.10, Farneback 0.97-1.04); not acceptable for a +-3 % requirement;
-    - a float Lucas-Kanade refinement with a *linear* warp over-reads small motions by 4-9 %
-      (interpolation smoothing); with the exact cubic warp, 2 steps bring every preset and
-      contrast within 0.975-1.005 (window 4 px). So the coarse method only has to land within
-      the capture range (about 1 px) and the fast DIS preset is the default;
-    - the refinement runs on the unquantised template/frame (scaled to grey units), not on the
-      8-bit pair, so rounding adds no noise and clipping no bias.
+    - raw OpenCV flow on the 8-bit pair (``refine_iterations=0``), 0.1-6 px: DIS ultrafast
+      0.66-0.87, fast 0.70-0.86, medium 0.90-1.05 (over-reads only at 0.1 px), Farneback
+      0.97-1.06. The gain depends on preset, amplitude and contrast: unfit for +-3 %. (An
+      earlier colleague's note of Farneback reading a quarter of the truth on a low-contrast
+      copy was not reproduced: 0.95 on a copy squeezed into 64 grey levels.)
+    - a float Lucas-Kanade refinement with a *linear* warp (first study, not kept) still
+      over-read small motions by 4-9 %; with the exact cubic-spline warp, 2 steps give
+      0.985-0.999 (DIS fast), 0.988-0.997 (medium), 0.971-1.007 (ultrafast), 0.998-1.019
+      (Farneback) over 0.1-6 px and all contrasts; 1 step falls to 0.92-0.98 at 6 px.
+      So the coarse method only needs to land within the capture range and DIS fast, the
+      cheapest preset that stays within 1.5 %, is the default.
+    - the refinement runs on the unquantised template and frame (grey units of the fixed
+      mapping), not on the rounded 8-bit pair: rounding adds no noise, clipping no bias.
+    - window 4 px keeps the gain within 3.6 % even on a field of 13 px radius at 3 px
+      amplitude (a 25 % strain), where window 6 px loses 6-10 %.
 
     Noise floor (mean magnitude at rest over the mask, template = mean of 20 rest frames,
-    white noise per pixel, 25 nm texture std): window 4 px gives 0.009 px at 1 nm and
-    0.018 px at 2 nm noise (0.03 / 0.05 px at a 4x lower texture contrast); window 6 px gives
-    0.007 / 0.014 px at a 1-2 % gain loss on a field of 25 px radius; raw DIS gives about
-    0.01 px through its own variational smoothing but at the wrong gain. The floor is an
-    upward bias that fades as the true displacement grows above it.
+    white noise per pixel): with 25 nm texture std and window 4 px, 0.011-0.012 px at 1 nm
+    and 0.022-0.025 px at 2 nm (0.029 / 0.061 px at 4x lower texture contrast, 0.007 /
+    0.014 px at 2x higher); window 6 px lowers it to 0.009 / 0.017 px, window 2 px raises
+    it to 0.026 / 0.052 px. Raw DIS sits near 0.01 px thanks to its own variational
+    smoothing, but at the wrong gain. The floor is an upward bias that fades once the true
+    displacement exceeds it (at 0.1 px peak amplitude, 1 nm noise: gain 1.03).
 
     ``measure``/``displacement`` do not change the tracker, so frames may run in threads.
     NaN pixels of a frame are filled with the template (no apparent motion there) and left
@@ -569,7 +581,7 @@ class FlowTracker:
         template = _check_image("template_nm", template_nm)
         mask_arr = _check_mask("mask", mask, template.shape)
         _check_choice("method", method, FLOW_METHODS)
-        _check_choice("preset", preset, DIS_PRESETS if method == "dis" else FARNEBACK_PRESETS)
+        _check_choice("preset", preset, _PRESETS[method])
         _check_window(window_px, refine_iterations)
         if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
             raise InputError(

@@ -378,25 +378,29 @@ def build_maps(
         smooth_s = float(smooth_s)
         if not (math.isfinite(smooth_s) and smooth_s >= 0):
             raise ConfigError(f"smooth_s must be >= 0 seconds or None, got {smooth_s!r}")
+    _check_fit_options(min_span_frames, min_r2, min_tiles)
     n_tiles = traces.shape[1]
     dt = float(np.median(np.diff(times)))
 
-    rest_vals = traces[rest]
-    enough_rest = np.isfinite(rest_vals).sum(axis=0) >= _MIN_REST_FRAMES
-    if rest_vals.shape[0] < _MIN_REST_FRAMES:
+    rest_idx = np.flatnonzero(rest)
+    if rest_idx.size < _MIN_REST_FRAMES:
         warnings.warn(
-            f"rest_frames marks {rest_vals.shape[0]} frames, fewer than {_MIN_REST_FRAMES}: "
+            f"rest_frames marks {rest_idx.size} frames, fewer than {_MIN_REST_FRAMES}: "
             "no tile can be assessed; record longer pauses between beats",
             BeatlabWarning,
             stacklevel=2,
         )
-    assessed = (cov >= min_coverage) & enough_rest
-    cols = np.flatnonzero(assessed)
+    candidates = np.flatnonzero(cov >= min_coverage)
+    rest_vals = traces[np.ix_(rest_idx, candidates)]
+    enough_rest = np.isfinite(rest_vals).sum(axis=0) >= _MIN_REST_FRAMES
+    cols = candidates[enough_rest]
+    assessed = np.zeros(n_tiles, dtype=bool)
+    assessed[cols] = True
 
     rest_level = np.full(n_tiles, np.nan)
     noise = np.full(n_tiles, np.nan)
     if cols.size:
-        sub = rest_vals[:, cols]
+        sub = rest_vals[:, enough_rest]
         level = np.nanmedian(sub, axis=0)
         rest_level[cols] = level
         noise[cols] = _MAD_TO_SD * np.nanmedian(np.abs(sub - level), axis=0)
@@ -411,7 +415,7 @@ def build_maps(
         )
         width = max(1, round(width_s / dt))
         width += 1 - width % 2
-        smooth = _moving_average(traces[:, cols], width)
+        half = width // 2
         base = rest_level[cols]
         for k in range(n_beats):
             lo_t = onsets[k] - rises[k]
@@ -424,7 +428,10 @@ def build_maps(
             i1 = int(np.searchsorted(times, hi_t, side="right"))
             if i1 - i0 < 2:
                 continue
-            win = smooth[i0:i1]
+            # smoothing only the beat window (plus a margin) keeps memory per beat, not per
+            # recording, and gives the same values as smoothing the whole trace
+            a0, a1 = max(0, i0 - half), min(times.size, i1 + half)
+            win = _moving_average(traces[a0:a1, cols], width)[i0 - a0 : i1 - a0]
             finite = np.isfinite(win)
             ipk = np.argmax(np.where(finite, win, -np.inf), axis=0)
             has_peak = finite.any(axis=0)
@@ -493,6 +500,21 @@ def _unresolved(n_tiles, reason, *, r2=None, span_s=None):
     }
 
 
+def _check_fit_options(min_span_frames, min_r2, min_tiles):
+    min_span_frames = float(min_span_frames)
+    if not (math.isfinite(min_span_frames) and min_span_frames >= 0):
+        raise ConfigError(f"min_span_frames must be >= 0, got {min_span_frames!r}")
+    min_r2 = float(min_r2)
+    if not (math.isfinite(min_r2) and min_r2 <= 1.0):
+        raise ConfigError(f"min_r2 must be a number <= 1, got {min_r2!r}")
+    if isinstance(min_tiles, bool) or int(min_tiles) != min_tiles or min_tiles < 3:
+        raise ConfigError(
+            f"min_tiles must be an integer >= 3 (a plane has 3 terms), got {min_tiles!r}"
+        )
+    min_tiles = int(min_tiles)
+    return min_span_frames, min_r2, min_tiles
+
+
 def _fit_plane(design, t):
     coef, *_ = np.linalg.lstsq(design, t, rcond=None)
     return coef, t - design @ coef
@@ -552,17 +574,7 @@ def estimate_propagation(
         raise InputError(f"onset_delay_s must be a 2-D (ny, nx) map, got shape {d.shape}")
     tile_um = _check_positive("tile_um", tile_um, InputError)
     dt = _check_positive("frame_interval_s", frame_interval_s, InputError)
-    min_span_frames = float(min_span_frames)
-    if not (math.isfinite(min_span_frames) and min_span_frames >= 0):
-        raise ConfigError(f"min_span_frames must be >= 0, got {min_span_frames!r}")
-    min_r2 = float(min_r2)
-    if not (math.isfinite(min_r2) and min_r2 <= 1.0):
-        raise ConfigError(f"min_r2 must be a number <= 1, got {min_r2!r}")
-    if isinstance(min_tiles, bool) or int(min_tiles) != min_tiles or min_tiles < 3:
-        raise ConfigError(
-            f"min_tiles must be an integer >= 3 (a plane has 3 terms), got {min_tiles!r}"
-        )
-    min_tiles = int(min_tiles)
+    min_span_frames, min_r2, min_tiles = _check_fit_options(min_span_frames, min_r2, min_tiles)
 
     iy, ix = np.nonzero(np.isfinite(d))
     n = int(iy.size)

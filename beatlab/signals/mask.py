@@ -71,6 +71,7 @@ def make_cell_mask(
     min_area_um2: float = 25.0,
     confluent_fraction: float = 0.7,
     border_px: int = 4,
+    noise_nm: float | None = None,
 ) -> CellMask:
     """Segment cells in the rest template.
 
@@ -91,6 +92,9 @@ def make_cell_mask(
         Smaller connected objects are dropped.
     confluent_fraction : float
         Cell-covered share above which the field counts as confluent.
+    noise_nm : float, optional
+        Noise SD of the template pixels (nm); a would-be background with far more texture
+        than this is taken as cells (confluent sheet).
     border_px : int
         Pixels at the field border are excluded (optical flow is unreliable there), except
         with ``'all'``.
@@ -101,8 +105,9 @@ def make_cell_mask(
 
     Notes
     -----
-    A field counts as confluent when the would-be background is as textured as the cells
-    (median high-pass magnitude above half that of the cells). The background is the low mode of the lightly smoothed template (sigma 1 px), found by
+    A field counts as confluent when no cells stand out, or the would-be background is as
+    textured as the cells (median high-pass magnitude above half that of the cells, or above
+    5 noise SDs). The background is the low mode of the lightly smoothed template (sigma 1 px), found by
     iterated 3-SD clipping; cells exceed it by ``threshold_sigma`` SDs; the result is
     closed, hole-filled and opened (3 x 3), and small objects are removed. NaN pixels are
     never in the mask.
@@ -135,9 +140,12 @@ def make_cell_mask(
     cell_share = cells[finite].mean() if finite.any() else 0.0
     # a real background is flat; "background" with the texture of cells is a confluent sheet
     texture = np.abs(template - ndimage.gaussian_filter(np.where(finite, template, level), 2.0))
-    textured = False
+    textured = not cells.any()
     if background.any() and cells.any():
         textured = np.median(texture[background]) > 0.5 * np.median(texture[cells])
+    if noise_nm is not None and background.any():
+        # high-pass of white noise has a median magnitude of about 0.6 SD
+        textured = textured or np.median(texture[background]) > 5.0 * noise_nm
     confluent = method == "confluent" or (
         method == "auto" and (cell_share > confluent_fraction or textured
                               or background.sum() < 0.05 * finite.sum()))

@@ -40,9 +40,9 @@ def _separated(points, candidate, min_dist):
 
 
 def _sample_centres(n, lo, hi, min_dist, rng, what):
-    for _ in range(200):
+    for _ in range(50):
         points = []
-        for _ in range(400):
+        for _ in range(200):
             cand = (rng.uniform(lo[0], hi[0]), rng.uniform(lo[1], hi[1]))
             if _separated(points, cand, min_dist):
                 points.append(cand)

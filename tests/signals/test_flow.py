@@ -1,5 +1,7 @@
 """Tests of the optical-flow displacement signal on textured OPD images warped exactly."""
 
+from concurrent.futures import ThreadPoolExecutor
+
 import numpy as np
 import pytest
 from scipy import ndimage as ndi
@@ -119,7 +121,7 @@ def test_zero_motion_noise_free_gives_zero(method):
 
 @pytest.mark.parametrize(
     ("noise_nm", "floor_px"),
-    # floors measured at window 4 px: ~0.009 px at 1 nm, ~0.018 px at 2 nm (see Notes)
+    # floors measured at window 4 px: 0.011 px at 1 nm, 0.022 px at 2 nm (FlowTracker Notes)
     [(1.0, 0.015), (2.0, 0.03)],
 )
 def test_noise_floor_at_rest(noise_nm, floor_px):
@@ -285,3 +287,22 @@ def test_refine_flow_does_not_mutate_inputs_and_converges():
 def test_compute_flow_rejects_float_input():
     with pytest.raises(InputError, match="uint8"):
         compute_flow(np.zeros((8, 8)), np.zeros((8, 8)))
+
+
+def test_threaded_frames_match_serial():
+    opd, mask = make_opd(np.random.default_rng(23))
+    frames = [warp_exact(opd, contraction_field(a)) for a in (0.2, 0.8, 1.5, 2.5)]
+    tracker = FlowTracker(opd, mask, pixel_size_um=PIXEL_UM)
+    serial = [tracker.displacement(f)[0] for f in frames]
+    with ThreadPoolExecutor(2) as pool:
+        threaded = [r[0] for r in pool.map(tracker.displacement, frames)]
+    assert threaded == serial
+    assert serial == sorted(serial)  # larger contraction, larger displacement
+
+
+def test_measure_reports_frame_clipping():
+    opd, mask = make_opd(np.random.default_rng(4))
+    tracker = FlowTracker(opd, mask, pixel_size_um=PIXEL_UM)
+    assert 0.0 < tracker.template_clipped_fraction < 0.02  # 0.5/99.5 percentiles
+    result = tracker.measure(opd + 100.0)  # far brighter than the template's range
+    assert result.clipped_fraction > 0.5

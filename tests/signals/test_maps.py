@@ -233,6 +233,8 @@ def test_no_beats_gives_zero_area_and_unresolved():
     assert maps["propagation"]["resolved"] is False
     assert maps["propagation"]["reason"] == "no beats"
     assert maps["peak_displacement_um"].shape == (NY, NX)
+    with pytest.raises(ConfigError, match="min_r2"):
+        _maps(sim, min_r2=2.0)  # options are checked even when there is nothing to fit
 
 
 def test_build_maps_does_not_mutate_inputs_and_warns_without_rest():

@@ -1,0 +1,75 @@
+import numpy as np
+import pytest
+
+from beatlab.frames import OPDSource
+from beatlab.signals.mask import make_cell_mask
+from beatlab.signals.rest import block_mean, estimate_rest_template, shift_image
+from beatlab.synth import simulate_recording
+from tests.pipeline.helpers import as_recording
+
+
+def _rest(sim):
+    return estimate_rest_template(OPDSource(as_recording(sim)))
+
+
+def test_rest_frames_are_relaxed_not_merely_still():
+    sim = simulate_recording(duration_s=6, fps=30, shape_px=(96, 96), rate_bpm=60,
+                             rise_s=0.15, relax_s=0.3, noise_nm=1.0, rng=1)
+    rest = _rest(sim)
+    act = np.atleast_2d(sim.activation)[0]
+    # the peak of a contraction is still too, but it is not rest
+    assert act[rest.rest].max() < 0.05 * act.max()
+    assert rest.method == "rest-frames"
+    # the template is the noise-free rest scene up to a plane, far less noisy than a frame
+    noise_per_frame = np.sqrt(np.nanmean(rest.noise_var))
+    assert noise_per_frame == pytest.approx(1.0, rel=0.15)
+
+
+def test_template_with_stage_drift_stays_sharp():
+    sim = simulate_recording(duration_s=6, fps=30, shape_px=(96, 96), rate_bpm=0,
+                             noise_nm=1.0, stage_drift_um=(1.0, 0.5), rng=2)
+    rest = _rest(sim)
+    # measured (dx, dy) shifts follow the drift: (y, x) = (1.0, 0.5) um at 0.5 um pixels
+    drift_px = rest.shifts_px[-1] - rest.shifts_px[0]
+    np.testing.assert_allclose(drift_px, [1.0, 2.0], atol=0.35)
+    first = sim.frames[0]
+    sharp = np.std(np.diff(first, axis=1))
+    assert np.std(np.diff(rest.template, axis=1)) > 0.8 * sharp
+
+
+def test_mask_sparse_vs_confluent():
+    sparse = simulate_recording(duration_s=2, fps=15, shape_px=(96, 96), rate_bpm=0,
+                                layout="clusters", rng=3)
+    conf = simulate_recording(duration_s=2, fps=15, shape_px=(96, 96), rate_bpm=0,
+                              layout="confluent", rng=3)
+    r1, r2 = _rest(sparse), _rest(conf)
+    noise = [float(np.sqrt(np.nanmedian(r.noise_var) / r.n_frames_used)) for r in (r1, r2)]
+    m1 = make_cell_mask(r1.template, pixel_size_um=sparse.pixel_size_um, noise_nm=noise[0])
+    m2 = make_cell_mask(r2.template, pixel_size_um=conf.pixel_size_um, noise_nm=noise[1])
+    assert m1.method == "threshold"
+    # the mask covers the true cells (edges taper smoothly, so it may be a little larger)
+    assert (m1.mask & sparse.mask).sum() / sparse.mask.sum() > 0.9
+    assert m1.background.any() and not (m1.background & sparse.mask).any()
+    assert m2.method == "confluent" and m2.masked_fraction > 0.8
+
+
+def test_mask_drops_nan_and_handles_methods():
+    rng = np.random.default_rng(0)
+    t = rng.normal(0, 1, (64, 64)).astype(np.float32)
+    t[20:40, 20:40] += 200
+    t[0:5, 0:5] = np.nan
+    m = make_cell_mask(t, pixel_size_um=0.5, method="all")
+    assert not m.mask[0:5, 0:5].any() and m.mask[30, 30]
+    m = make_cell_mask(t, pixel_size_um=0.5, method="threshold", min_area_um2=1000.0)
+    assert not m.mask.any()  # the only object is 100 um^2
+    with pytest.raises(ValueError, match="auto, threshold"):
+        make_cell_mask(t, pixel_size_um=0.5, method="otsu")
+
+
+def test_shift_image_exact_and_block_mean():
+    y, x = np.mgrid[:64, :64]
+    img = np.sin(2 * np.pi * x / 16).astype(np.float32)
+    moved = shift_image(img, np.array([2.0, 0.0]))
+    np.testing.assert_allclose(moved, np.sin(2 * np.pi * (x - 2) / 16), atol=1e-4)
+    a = np.arange(16, dtype=np.float32).reshape(4, 4)
+    np.testing.assert_allclose(block_mean(a, 2), [[2.5, 4.5], [10.5, 12.5]])

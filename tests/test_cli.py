@@ -1,0 +1,107 @@
+"""The command line as a user runs it: exit codes, one-line errors, output files."""
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pandas as pd
+import pytest
+import tifffile
+
+from beatlab.cli import main
+
+
+def _run(*args):
+    return subprocess.run([sys.executable, "-m", "beatlab", *args], capture_output=True,
+                          text=True, timeout=600)
+
+
+def test_help_lists_subcommands():
+    out = _run("--help")
+    assert out.returncode == 0
+    for cmd in ("analyze", "reconstruct", "simulate"):
+        assert cmd in out.stdout
+
+
+def test_simulate_then_analyze(tmp_path):
+    movie = tmp_path / "x.ome.tif"
+    out = _run("simulate", "--out", str(movie), "--duration-s", "6", "--size-px", "80",
+               "--rate-bpm", "70", "--seed", "3")
+    assert out.returncode == 0, out.stderr
+    truth = json.loads((tmp_path / "x.truth.json").read_text())
+    with tifffile.TiffFile(movie) as tif:
+        assert "TimeIncrement" in tif.ome_metadata and "PhysicalSizeX" in tif.ome_metadata
+    res = _run("analyze", str(movie), "--out", str(tmp_path / "res"))
+    assert res.returncode == 0, res.stderr
+    summary = json.loads((tmp_path / "res" / "summary.json").read_text())
+    assert summary["beat_count"] == truth["summary"]["beat_count"]
+    assert summary["metadata"]["fps"] == pytest.approx(30.0)
+    assert "Research use only" in summary["caution"]
+    beats = pd.read_csv(tmp_path / "res" / "beats.csv")
+    for col in ("beat", "onset_s", "peak_s", "end_s", "ibi_s", "time_to_peak_s",
+                "relax_50_s", "relax_90_s", "duration_50_s", "duration_90_s",
+                "displacement_um", "opd_change_nm", "contraction_velocity_um_s",
+                "relaxation_velocity_um_s", "secondary_peak", "irregular"):
+        assert col in beats.columns
+    trace = pd.read_csv(tmp_path / "res" / "trace.csv")
+    assert list(trace.columns[:4]) == ["time_s", "displacement_um", "velocity_um_s",
+                                       "opd_change_nm"]
+    assert len(trace) == 180
+    for name in ("average_beat.csv", "regions.csv", "region_beats.csv", "region_traces.csv",
+                 "maps.npz", "trace.png", "trace.svg", "maps.png"):
+        assert (tmp_path / "res" / name).exists(), name
+
+
+def test_quiescent_exits_zero(tmp_path, capsys):
+    movie = tmp_path / "still.ome.tif"
+    assert main(["simulate", "--out", str(movie), "--duration-s", "4", "--size-px", "64",
+                 "--rate-bpm", "0"]) == 0
+    assert main(["analyze", str(movie), "--out", str(tmp_path / "r"), "--no-figures"]) == 0
+    summary = json.loads((tmp_path / "r" / "summary.json").read_text())
+    assert summary["rhythm"] == "quiescent" and summary["beat_rate_bpm"] == 0
+
+
+def test_missing_metadata_names_the_flag(tmp_path):
+    path = tmp_path / "plain.npy"
+    np.save(path, np.zeros((20, 32, 32), np.float32))
+    out = _run("analyze", str(path))
+    assert out.returncode == 2
+    lines = out.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("beatlab: error:")
+    assert "--fps" in lines[0]
+    assert "Traceback" not in out.stderr
+
+
+def test_unreadable_and_bad_usage(tmp_path):
+    bad = tmp_path / "bad.tif"
+    bad.write_bytes(b"nonsense")
+    out = _run("analyze", str(bad))
+    assert out.returncode == 2 and "cannot be read" in out.stderr
+    out = _run("analyze", str(tmp_path / "nope.tif"))
+    assert out.returncode == 2 and "no such file" in out.stderr
+    out = _run("analyze")
+    assert out.returncode == 2
+    out = _run("analyze", str(bad), "--fps", "-1")
+    assert out.returncode == 2 and "must be positive" in out.stderr
+
+
+def test_too_short_and_all_nan(tmp_path):
+    short = tmp_path / "short.npy"
+    np.save(short, np.zeros((3, 32, 32), np.float32))
+    out = _run("analyze", str(short), "--fps", "30", "--pixel-size-um", "0.5")
+    assert out.returncode == 2 and "frames" in out.stderr
+    nan = tmp_path / "nan.npy"
+    np.save(nan, np.full((20, 32, 32), np.nan, np.float32))
+    out = _run("analyze", str(nan), "--fps", "30", "--pixel-size-um", "0.5")
+    assert out.returncode == 2 and "NaN" in out.stderr
+
+
+def test_bad_config_key(tmp_path):
+    cfg = tmp_path / "c.toml"
+    cfg.write_text("[beats]\nmin_snr_typo = 3\n")
+    path = tmp_path / "z.npy"
+    np.save(path, np.zeros((20, 32, 32), np.float32))
+    out = _run("analyze", str(path), "--fps", "30", "--pixel-size-um", "0.5", "--config",
+               str(cfg))
+    assert out.returncode == 2 and "beats.min_snr_typo" in out.stderr
