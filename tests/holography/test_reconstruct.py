@@ -31,14 +31,15 @@ def _curvature(shape=SHAPE, strength=5e-4):
 def _truth_on_grid(rec, opd, carrier):
     """OPD the reconstructor should output: the truth band-limited by its window on its grid.
 
-    The side-band it uses holds exp(+i phase) when it is the true carrier, else exp(-i phase).
+    Its filter passes the side-band at ``+-carrier`` that holds ``exp(+-i phase)``; the
+    reconstructor then applies its sign.
     """
-    s = float(np.sign(np.dot(rec.carrier, carrier)))
-    k = tuple(s * np.array(carrier))
     filt = rec._filter
+    s = float(np.sign(np.dot(filt.carrier_cycles_per_px, carrier)))
+    k = tuple(s * np.array(carrier))
     field = filt.band_limit(np.exp(s * 2j * np.pi * opd / LAMBDA_NM), carrier_cycles_per_px=k)
     field = field / filt.band_limit(np.ones(opd.shape), carrier_cycles_per_px=k)
-    phase = unwrap_phase_ls(np.angle(field))
+    phase = rec.sign * unwrap_phase_ls(np.angle(field))
     phase -= 2 * np.pi * np.round(np.median(phase) / (2 * np.pi))  # background (most pixels) at 0
     return phase * LAMBDA_NM / (2 * np.pi)
 
