@@ -66,7 +66,14 @@ PARAMETERS: dict[str, dict[str, Param]] = {
                                 "confluent", "fraction", lo=0.0, hi=1.0),
     },
     "flow": {
-        "method": P("dis", "dense optical-flow method", choices=("dis", "farneback")),
+        "method": P("dis", "coarse dense optical-flow method", choices=("dis", "farneback")),
+        "preset": P("fast", "preset of the coarse method", choices=("ultrafast", "fast",
+                                                                     "medium")),
+        "refine_iterations": P(2, "float Gauss-Newton refinement steps after the coarse flow "
+                               "(0: raw OpenCV flow, whose gain is off by up to 30 %)", "steps",
+                               lo=0, hi=10),
+        "window_px": P(4.0, "Gaussian window (SD) of the refinement; larger lowers the noise "
+                       "floor and smooths the field", "px", lo=0.5),
         "rigid": P("auto", "rigid whole-field shift removal: from background pixels (auto uses "
                    "them where there are any, else the field median)",
                    choices=("auto", "background", "median", "none")),

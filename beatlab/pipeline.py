@@ -235,6 +235,9 @@ def analyze(
     if rigid in ("auto", "background") and cells.background.sum() > 0.05 * mask.size:
         background = cells.background
     tracker = FlowTracker(template, mask, pixel_size_um=px_um, method=flow_cfg["method"],
+                          preset=flow_cfg["preset"],
+                          refine_iterations=flow_cfg["refine_iterations"],
+                          window_px=flow_cfg["window_px"],
                           percentiles=(flow_cfg["percentile_low"],
                                        flow_cfg["percentile_high"]),
                           background=background if rigid != "none" else None)

@@ -97,10 +97,12 @@ def estimate_noise(trace, *, method="mad_diff"):
             f"trace needs at least 3 samples to estimate its noise, got {values.size}; "
             "record more frames"
         )
-    return NOISE_METHODS[method](values)
+    return float(NOISE_METHODS[method](values))
 
 
-def estimate_beat_baselines(trace, times_s, peaks, *, window_s=0.1, min_samples=3):
+def estimate_beat_baselines(
+    trace, times_s, peaks, *, window_s=0.1, min_samples=3, locator=None, rest_band=0.0
+):
     """Baseline of each beat: median of the trace over a window centred on its lowest point.
 
     Parameters
@@ -117,6 +119,16 @@ def estimate_beat_baselines(trace, times_s, peaks, *, window_s=0.1, min_samples=
         Fewest samples in the window: when `window_s` covers fewer (low frame rates), the
         `min_samples` samples centred on the lowest point are used, so one noisy low sample
         does not set the baseline alone. 1 keeps the window strictly in time.
+    locator : array_like, shape (T,), optional
+        Trace on which the lowest point is located (e.g. a more smoothed copy, so the window
+        is not centred on a single noise dip); None uses `trace`. The median is always taken
+        over `trace`.
+    rest_band : float
+        Noise allowance (unit of the trace, >= 0). When > 0, the window is widened to the
+        whole stretch around the lowest point (between the previous peak and this peak) over
+        which `locator` stays within `rest_band` of its lowest value: on a noisy floor the
+        median is then taken over the resting stretch, not only over the deepest noise dip.
+        0 (a clean trace) keeps the plain window.
 
     Returns
     -------
@@ -134,20 +146,43 @@ def estimate_beat_baselines(trace, times_s, peaks, *, window_s=0.1, min_samples=
     values = as_trace(trace)
     times = as_times(times_s, values.size)
     window_s = check_non_negative(window_s, "window_s")
+    rest_band = check_non_negative(rest_band, "rest_band")
     if int(min_samples) != min_samples or min_samples < 1:
         raise InputError(f"min_samples must be an integer >= 1, got {min_samples!r}")
     idx = as_peaks(peaks, values.size)
+    where = values if locator is None else as_trace(locator, name="locator")
+    if where.size != values.size:
+        raise InputError(
+            f"locator must have one value per trace sample ({values.size}), got {where.size}"
+        )
     baselines = np.empty(idx.size)
     lowest = np.empty(idx.size, dtype=np.intp)
     previous = 0
     half = int(min_samples) // 2
     for k, peak in enumerate(idx):
-        low = previous + int(np.argmin(values[previous : peak + 1]))
+        low = previous + int(np.argmin(where[previous : peak + 1]))
         in_window = np.abs(times - times[low]) <= window_s / 2 + 1e-12
         if np.count_nonzero(in_window) < min_samples:
             start = max(0, min(low - half, values.size - int(min_samples)))
             in_window = slice(start, start + int(min_samples))
+        if rest_band > 0:
+            in_window = _widen_to_rest(in_window, where, previous, peak, low, rest_band)
         baselines[k] = np.median(values[in_window])
         lowest[k] = low
         previous = peak
     return baselines, lowest
+
+
+def _widen_to_rest(in_window, where, first, last, low, band):
+    """Union of the window with the stretch around `low` where `where` <= its minimum + band."""
+    mask = np.zeros(where.size, dtype=bool)
+    mask[in_window] = True
+    quiet = where[first : last + 1] <= where[low] + band
+    breaks = np.flatnonzero(~quiet)
+    centre = low - first
+    left = breaks[breaks < centre]
+    right = breaks[breaks > centre]
+    start = first + (int(left[-1]) + 1 if left.size else 0)
+    stop = first + (int(right[0]) - 1 if right.size else last - first)
+    mask[start : stop + 1] = True
+    return mask

@@ -67,6 +67,8 @@ def measure_beats(
     hysteresis_sd=2.5,
     baseline_window_s=0.1,
     baseline_min_samples=3,
+    baseline_smooth_s=0.05,
+    baseline_rest_sd=4.0,
     peak_search_s=0.05,
     noise_method="robust",
     noise_sd=None,
@@ -108,6 +110,16 @@ def measure_beats(
         trace (see :func:`beatlab.beats.crossings.level_crossing`); 0 is the plain rule.
     baseline_window_s, baseline_min_samples
         Baseline window (s) and its fewest samples (see :func:`estimate_beat_baselines`).
+    baseline_smooth_s : float
+        Bandwidth (s) of the local quadratic smoothing of the copy on which each beat's
+        lowest point is located: on a noisy floor the window is then centred on the resting
+        level, not on the deepest noise dip (which would bias the baseline low and the 10 %
+        crossings late). 0 locates it on the measured trace itself.
+    baseline_rest_sd : float
+        On a noisy trace the baseline window is widened to the resting stretch around the
+        lowest point over which that smoothed copy stays within this many of its noise SDs of
+        its lowest value (see `rest_band` of :func:`estimate_beat_baselines`). The allowance
+        is zero on a noise-free trace, which keeps the plain 100 ms window. 0 turns it off.
     peak_search_s : float
         Half-width (s) of the search for the maximum around each given peak index.
     noise_method : str
@@ -168,6 +180,7 @@ def measure_beats(
     smooth_s = check_non_negative(smooth_s, "smooth_s")
     hysteresis_sd = check_non_negative(hysteresis_sd, "hysteresis_sd")
     peak_search_s = check_non_negative(peak_search_s, "peak_search_s")
+    baseline_smooth_s = check_non_negative(baseline_smooth_s, "baseline_smooth_s")
     if noise_method not in NOISE_METHODS:
         raise InputError(
             f"noise_method must be one of {sorted(NOISE_METHODS)}, got {noise_method!r}"
@@ -186,8 +199,20 @@ def measure_beats(
 
     idx = _refine_peaks(smooth, idx, round(peak_search_s / dt))
     peak_s, peak_val = _parabola_vertices(smooth, times, idx)
+    locator, _ = smooth_local_quadratic(values, times, bandwidth_s=baseline_smooth_s)
+    rest_band = (
+        check_non_negative(baseline_rest_sd, "baseline_rest_sd")
+        * check_non_negative(noise_sd, "noise_sd")
+        * noise_gain(dt, bandwidth_s=baseline_smooth_s, kind="local_quadratic")
+    )
     baseline, lowest = estimate_beat_baselines(
-        smooth, times, idx, window_s=baseline_window_s, min_samples=baseline_min_samples
+        smooth,
+        times,
+        idx,
+        window_s=baseline_window_s,
+        min_samples=baseline_min_samples,
+        locator=locator,
+        rest_band=rest_band,
     )
     amplitude = peak_val - baseline
     band = hysteresis_sd * sigma

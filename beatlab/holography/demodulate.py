@@ -14,6 +14,8 @@ __all__ = ["SidebandFilter", "auto_radius", "radius_from_na"]
 
 #: Fraction of the window radius over which the raised-cosine edge falls from 1 to 0.
 DEFAULT_TAPER = 0.25
+#: Width, in output pixels, of the roll-off of the frame edges ("auto" edge_px).
+_EDGE_OUTPUT_PX = 3.0
 
 
 def auto_radius(carrier_cycles_per_px):
@@ -81,6 +83,15 @@ def radius_from_na(na, *, wavelength_nm, pixel_size_um):
     return float(na) / (float(wavelength_nm) * 1e-3) * float(pixel_size_um)
 
 
+def _edge_ramp(n, width):
+    """1-D raised-cosine ramp from 0 to 1 over ``width`` samples at both ends."""
+    ramp = np.ones(n)
+    t = (np.arange(width) + 0.5) / width
+    ramp[:width] = 0.5 * (1.0 - np.cos(np.pi * t))
+    ramp[n - width :] = ramp[:width][::-1]
+    return ramp
+
+
 def _crop_shape(shape, radius):
     """Crop ``(Yc, Xc)`` holding a disc of ``radius`` cycles/px, in proportion to ``shape``."""
     ny, nx = shape
@@ -113,6 +124,12 @@ class SidebandFilter:
     taper : float, optional
         Fraction of the radius over which the raised-cosine edge falls from 1 to 0
         (0 gives a hard disc).
+    edge_px : "auto" or int, optional
+        Width in input pixels of a raised-cosine roll-off applied to the frame edges before
+        the FFT; ``"auto"`` takes three output pixels. 0 switches it off.
+    trim_px : "auto" or int, optional
+        Output pixels dropped at each edge, where the rolled-off frame wraps round;
+        ``"auto"``: 1 with a roll-off, else 0.
     workers : int, optional
         Threads for ``scipy.fft``.
 
@@ -121,7 +138,9 @@ class SidebandFilter:
     output_shape : tuple of int
         Shape ``(Y', X')`` of the demodulated field.
     scale : float
-        Output pixel size over input pixel size, ``Y / Y'``.
+        Output pixel size over input pixel size (band rows over frame rows).
+    origin_px : float
+        Input-pixel coordinate (along both axes) of output pixel ``(0, 0)``.
 
     Raises
     ------
@@ -133,10 +152,13 @@ class SidebandFilter:
     Spatial filtering of the +1 order of an off-axis hologram (Cuche, Marquet & Depeursinge
     2000, Appl Opt 39:4070): the real FFT of the frame is sampled on a grid of ``(Y', X')``
     frequencies centred on the side-band, cropped in proportion to the frame so pixels stay
-    square; negative x frequencies come from the Hermitian symmetry of the real FFT. The band
+    square; the frame edges are first rolled off so that the fringes, which do not complete
+    whole periods across a frame, do not leak broadband edge ringing of the zero and twin
+    orders into the band (the outermost ``edge_px`` input pixels then carry little signal).
+    Negative x frequencies come from the Hermitian symmetry of the real FFT. The band
     is weighted by a raised-cosine disc centred on the sub-pixel carrier, inverse transformed
     on the small grid, and the residual sub-pixel carrier is removed by a phase ramp. The
-    output samples the field at input pixel ``(j, i) * scale``.
+    output samples the field at input pixel ``origin_px + (j, i) * scale``.
     """
 
     def __init__(
@@ -146,6 +168,8 @@ class SidebandFilter:
         radius_cycles_per_px,
         *,
         taper=DEFAULT_TAPER,
+        edge_px="auto",
+        trim_px="auto",
         workers=None,
     ):
         ny, nx = (int(n) for n in shape)
@@ -173,8 +197,31 @@ class SidebandFilter:
         self.taper = float(taper)
         self.workers = workers
         cy, cx = _crop_shape((ny, nx), r)
-        self.output_shape = (cy, cx)
         self.scale = ny / cy
+        if edge_px == "auto":
+            edge_px = math.ceil(_EDGE_OUTPUT_PX * self.scale)
+        if int(edge_px) != edge_px or not 0 <= edge_px < min(ny, nx) // 4:
+            raise ConfigError(
+                f"edge_px: must be 'auto' or an integer in 0..{min(ny, nx) // 4 - 1}, "
+                f"got {edge_px!r}"
+            )
+        self.edge_px = int(edge_px)
+        if trim_px == "auto":
+            trim_px = 1 if self.edge_px > 0 else 0
+        if int(trim_px) != trim_px or not 0 <= trim_px < min(cy, cx) // 4:
+            raise ConfigError(
+                f"trim_px: must be 'auto' or an integer in 0..{min(cy, cx) // 4 - 1}, "
+                f"got {trim_px!r}"
+            )
+        b = self.trim_px = int(trim_px)
+        self.output_shape = (cy - 2 * b, cx - 2 * b)
+        self.origin_px = b * self.scale
+        self._keep = (slice(b, cy - b), slice(b, cx - b))
+        self._apod = None
+        if self.edge_px > 0:
+            self._apod = (
+                _edge_ramp(ny, self.edge_px)[:, None] * _edge_ramp(nx, self.edge_px)[None, :]
+            ).astype(np.float32)
 
         # integer bin of the carrier and its sub-bin residual
         by, bx = k[0] * ny, k[1] * nx
@@ -207,7 +254,8 @@ class SidebandFilter:
         self._flat = np.broadcast_to(self._flat, (cy, cx)).copy()
         yo = np.arange(cy)[:, None] / cy
         xo = np.arange(cx)[None, :] / cx
-        self._ramp = np.exp(-2j * np.pi * (dy * yo + dx * xo)).astype(np.complex64)
+        self._ramp = np.exp(-2j * np.pi * (dy * yo + dx * xo))[self._keep].astype(np.complex64)
+        self._band_shape = (cy, cx)
 
     def _filter_spectrum(self, spectrum_half):
         band = np.take(spectrum_half.reshape(-1), self._flat)
@@ -215,8 +263,7 @@ class SidebandFilter:
             np.conjugate(band, out=band, where=self._mirror)
         band *= self._window
         field = scipy.fft.ifft2(band, workers=self.workers, overwrite_x=True)
-        field *= self._ramp
-        return field
+        return field[self._keep] * self._ramp
 
     def demodulate(self, hologram):
         """Complex field of the side-band of one hologram frame.
@@ -243,7 +290,9 @@ class SidebandFilter:
                 f"hologram: expected a frame of shape {self.shape} like the first frame, got "
                 f"{frame.shape}; all frames of a recording must have the same size"
             )
-        if frame.dtype != np.float32:
+        if self._apod is not None:
+            frame = np.multiply(frame, self._apod, dtype=np.float32)  # new array, input kept
+        elif frame.dtype != np.float32:
             frame = frame.astype(np.float32)
         spectrum = scipy.fft.rfft2(frame, workers=self.workers)
         return self._filter_spectrum(spectrum)
@@ -281,14 +330,16 @@ class SidebandFilter:
         xx = np.arange(nx)[None, :]
         k = self.carrier_cycles_per_px if carrier_cycles_per_px is None else carrier_cycles_per_px
         carried = obj * np.exp(2j * np.pi * (k[0] * yy + k[1] * xx))
+        if self._apod is not None:
+            carried = carried * self._apod
         full = scipy.fft.fft2(carried, workers=self.workers)
         band = np.take(full.reshape(-1), self._full_flat()) * self._window
-        out = scipy.fft.ifft2(band, workers=self.workers) * self._ramp
+        out = scipy.fft.ifft2(band, workers=self.workers)[self._keep] * self._ramp
         return out.astype(np.complex64)
 
     def _full_flat(self):
         ny, nx = self.shape
-        cy, cx = self.output_shape
+        cy, cx = self._band_shape
         k = self.carrier_cycles_per_px
         uy = np.rint(scipy.fft.fftfreq(cy) * cy).astype(np.int64)[:, None]
         ux = np.rint(scipy.fft.fftfreq(cx) * cx).astype(np.int64)[None, :]

@@ -16,7 +16,8 @@ from beatlab.holography.background import (
     phase_offset,
 )
 from beatlab.holography.demodulate import SidebandFilter, auto_radius, radius_from_na
-from beatlab.holography.refocus import FOCUS_METRICS, AngularSpectrumPropagator, autofocus
+from beatlab.holography.refocus import FOCUS_METRICS, AngularSpectrumPropagator
+from beatlab.holography.refocus import autofocus as _search_focus
 from beatlab.holography.sideband import locate_sideband
 from beatlab.opd import phase_to_opd, unwrap_in_time, unwrap_phase_ls
 
@@ -51,7 +52,10 @@ class OffAxisReconstructor:
     output_shape : tuple of int
         Shape ``(Y', X')`` of the OPD frames.
     output_pixel_size_um : float
-        Sample-plane pixel size of the OPD frames, input pixel size times ``Y / Y'``.
+        Sample-plane pixel size of the OPD frames: input pixel size times the frame size over
+        the size of the band's inverse transform (before the edge trim).
+    output_origin_px : float
+        Input-pixel coordinate (both axes) of OPD pixel ``(0, 0)``.
     carrier : tuple of float
         Centre ``(fy, fx)`` in cycles per input pixel of the side-band used.
     sign : int
@@ -106,6 +110,10 @@ class OffAxisReconstructor:
         return self.input_pixel_size_um * self._filter.scale
 
     @property
+    def output_origin_px(self):
+        return self._filter.origin_px
+
+    @property
     def carrier(self):
         fy, fx = self._filter.carrier_cycles_per_px
         return (self.sign * fy, self.sign * fx)
@@ -131,6 +139,7 @@ class OffAxisReconstructor:
         na=None,
         n_medium=1.333,
         refocus_um=None,
+        autofocus=False,
         polynomial_order=2,
         focus_range_um=(-20.0, 20.0),
         focus_metric="amplitude_std",
@@ -157,16 +166,20 @@ class OffAxisReconstructor:
             carrier); ``"-1"``: its twin (the phase changes sign); ``"auto"``: the one that
             makes the cells of the first frame positive.
         radius : "auto" or float, optional
-            Window radius in cycles per input pixel; ``"auto"`` takes a third of the carrier
-            distance (or half the distance to the twin, if smaller), unless ``na`` is given.
+            Window radius in cycles per input pixel; ``"auto"`` (or 0) takes a third of the
+            carrier distance (or half the distance to the twin, if smaller), unless ``na`` is
+            given.
         na : float, optional
             Numerical aperture of the objective; sets the radius to ``na / wavelength`` in
-            spatial frequency. Exclusive with a numeric ``radius``.
+            spatial frequency. Exclusive with a numeric ``radius``; None or 0: not used.
         n_medium : float, optional
             Refractive index of the medium for refocusing.
         refocus_um : None, float or "auto", optional
             Propagation distance in um applied to every frame; ``"auto"`` searches
-            ``focus_range_um`` on the first frame; None (default) does not refocus.
+            ``focus_range_um`` on the first frame; None or 0 (default) does not refocus.
+        autofocus : bool, optional
+            Same as ``refocus_um="auto"`` (the configuration's switch); exclusive with a
+            non-zero ``refocus_um``.
         polynomial_order : int, optional
             Total degree of the background polynomial when no reference is given.
         focus_range_um : tuple of float, optional
@@ -214,6 +227,18 @@ class OffAxisReconstructor:
             raise ConfigError(
                 f"refocus_um: got {refocus_um!r}; pass None, a distance in um or 'auto'"
             )
+        if radius in (0, None):
+            radius = "auto"
+        if na == 0:
+            na = None
+        if autofocus:
+            if refocus_um not in (None, 0, "auto"):
+                raise ConfigError(
+                    f"autofocus: true together with refocus_um={refocus_um!r}; pass one of them"
+                )
+            refocus_um = "auto"
+        if refocus_um == 0:
+            refocus_um = None
         frame0 = np.asarray(hologram0)
         refs = None
         if reference is not None:
@@ -279,7 +304,7 @@ class OffAxisReconstructor:
         post = None
         if refocus_um is not None:
             if refocus_um == "auto":
-                z_um = autofocus(
+                z_um = _search_focus(
                     corrected,
                     wavelength_nm=wavelength_nm,
                     pixel_size_um=pixel_size_um * filt.scale,

@@ -1,0 +1,24 @@
+"""Contraction signals: rest template, levelling, mask, optical flow, traces and maps."""
+
+from beatlab.signals.flow import FLOW_METHODS, FlowTracker, compute_flow
+from beatlab.signals.level import PlaneLeveller
+from beatlab.signals.maps import build_maps, tile_labels, tile_means
+from beatlab.signals.mask import CellMask, make_cell_mask
+from beatlab.signals.rest import RestTemplate, estimate_rest_template
+from beatlab.signals.traces import opd_change_trace, velocity_trace
+
+__all__ = [
+    "FLOW_METHODS",
+    "CellMask",
+    "FlowTracker",
+    "PlaneLeveller",
+    "RestTemplate",
+    "build_maps",
+    "compute_flow",
+    "estimate_rest_template",
+    "make_cell_mask",
+    "opd_change_trace",
+    "tile_labels",
+    "tile_means",
+    "velocity_trace",
+]

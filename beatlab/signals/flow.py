@@ -26,6 +26,14 @@ import cv2
 import numpy as np
 
 from beatlab.errors import InputError
+from beatlab.signals._flow_checks import (
+    check_choice,
+    check_flow,
+    check_image,
+    check_mask,
+    check_scale,
+    check_window,
+)
 from beatlab.signals._flow_refine import ReferenceBasis, prepare_reference, refine_with_basis
 
 __all__ = [
@@ -63,14 +71,14 @@ _MAX_MEDIAN_PX = 65536
 
 
 def _flow_dis(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str) -> np.ndarray:
-    _check_choice("preset", preset, DIS_PRESETS)
+    check_choice("preset", preset, DIS_PRESETS)
     # A new instance per call: cheap (~10 us) and safe when frames run in parallel threads.
     engine = cv2.DISOpticalFlow_create(DIS_PRESETS[preset])
     return engine.calc(reference_u8, moving_u8, None)
 
 
 def _flow_farneback(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str) -> np.ndarray:
-    _check_choice("preset", preset, FARNEBACK_PRESETS)
+    check_choice("preset", preset, FARNEBACK_PRESETS)
     pyr_scale, levels, winsize, iterations, poly_n, poly_sigma = FARNEBACK_PRESETS[preset]
     return cv2.calcOpticalFlowFarneback(
         reference_u8, moving_u8, None, pyr_scale, levels, winsize, iterations, poly_n,
@@ -96,55 +104,6 @@ class FlowMeasurement(NamedTuple):
     rigid_shift_px: np.ndarray  # (2,) float64, (dx, dy)
     flow_px: np.ndarray  # (Y, X, 2) float32, rigid shift removed
     clipped_fraction: float
-
-
-def _check_choice(name: str, value: str, choices: dict) -> None:
-    if value not in choices:
-        raise InputError(
-            f"{name} must be one of {sorted(choices)}, got {value!r}; pass one of those names"
-        )
-
-
-def _check_image(name: str, image: np.ndarray, *, dtype: type | None = None) -> np.ndarray:
-    arr = np.asarray(image)
-    if arr.ndim != 2 or min(arr.shape) < 2:
-        raise InputError(
-            f"{name} must be a 2-D image (Y, X) of at least 2x2 px, got shape {arr.shape}; "
-            "pass one frame"
-        )
-    if dtype is not None and arr.dtype != dtype:
-        raise InputError(
-            f"{name} must have dtype {np.dtype(dtype).name}, got {arr.dtype}; "
-            "map it with to_uint8(image_nm, flow_scale(template_nm))"
-        )
-    return arr
-
-
-def _check_mask(name: str, mask: np.ndarray, shape: tuple[int, ...]) -> np.ndarray:
-    arr = np.asarray(mask)
-    if arr.shape != shape:
-        raise InputError(f"{name} must have shape {shape}, got {arr.shape}; pass a matching mask")
-    if arr.dtype != bool:
-        raise InputError(f"{name} must be a boolean array, got dtype {arr.dtype}; pass mask > 0")
-    return arr
-
-
-def _check_flow(flow: np.ndarray) -> np.ndarray:
-    arr = np.asarray(flow)
-    if arr.ndim != 3 or arr.shape[2] != 2:
-        raise InputError(
-            f"flow must have shape (Y, X, 2), got {arr.shape}; pass the output of compute_flow"
-        )
-    return arr
-
-
-def _check_window(window_px: float, refine_iterations: int) -> None:
-    if not (np.isfinite(window_px) and window_px >= 0.5):
-        raise InputError(f"window_px must be a number >= 0.5 px, got {window_px!r}; e.g. 4.0")
-    if int(refine_iterations) != refine_iterations or refine_iterations < 0:
-        raise InputError(
-            f"refine_iterations must be an integer >= 0, got {refine_iterations!r}; e.g. 2"
-        )
 
 
 def flow_scale(
@@ -182,7 +141,7 @@ def flow_scale(
     pixels (debris, unwrapping errors) from compressing the texture into a few grey levels;
     the fraction clipped by this choice is reported by :func:`to_uint8`.
     """
-    template = _check_image("template_nm", template_nm)
+    template = check_image("template_nm", template_nm)
     lo_p, hi_p = (float(p) for p in percentiles)
     if not (0.0 <= lo_p < hi_p <= 100.0):
         raise InputError(
@@ -191,7 +150,7 @@ def flow_scale(
         )
     valid = np.isfinite(template)
     if mask is not None:
-        valid &= _check_mask("mask", mask, template.shape)
+        valid &= check_mask("mask", mask, template.shape)
     if not valid.any():
         raise InputError(
             "template_nm has no finite pixel inside the mask; pass a template with data "
@@ -208,20 +167,6 @@ def _scale_to_grey(image_nm: np.ndarray, scale: tuple[float, float]) -> np.ndarr
     return ((np.asarray(image_nm, dtype=np.float32) - np.float32(lo)) * np.float32(
         255.0 / (hi - lo)
     )).astype(np.float32)  # fmt: skip
-
-
-def _check_scale(scale: tuple[float, float]) -> tuple[float, float]:
-    try:
-        lo, hi = (float(v) for v in scale)
-    except (TypeError, ValueError):
-        raise InputError(
-            f"scale must be a pair (lo_nm, hi_nm), got {scale!r}; use flow_scale(template_nm)"
-        ) from None
-    if not (np.isfinite(lo) and np.isfinite(hi) and hi > lo):
-        raise InputError(
-            f"scale must be finite with hi > lo, got {scale!r}; use flow_scale(template_nm)"
-        )
-    return lo, hi
 
 
 def to_uint8(image_nm: np.ndarray, scale: tuple[float, float]) -> tuple[np.ndarray, float]:
@@ -247,8 +192,8 @@ def to_uint8(image_nm: np.ndarray, scale: tuple[float, float]) -> tuple[np.ndarr
     InputError
         Not a 2-D image, or an invalid scale.
     """
-    image = _check_image("image_nm", image_nm)
-    scale = _check_scale(scale)
+    image = check_image("image_nm", image_nm)
+    scale = check_scale(scale)
     grey = _scale_to_grey(image, scale)
     finite = np.isfinite(grey)
     n_finite = int(finite.sum())
@@ -298,9 +243,9 @@ def refine_flow(
     Matthews 2004) and a small Tikhonov damping, so textureless pixels keep the initial
     estimate. The fixed point does not depend on the contrast of the images.
     """
-    ref = _check_image("reference", reference)
-    mov = _check_image("moving", moving)
-    fl = _check_flow(flow)
+    ref = check_image("reference", reference)
+    mov = check_image("moving", moving)
+    fl = check_flow(flow)
     if mov.shape != ref.shape or fl.shape[:2] != ref.shape:
         raise InputError(
             f"reference, moving and flow must share (Y, X), got {ref.shape}, {mov.shape}, "
@@ -308,7 +253,7 @@ def refine_flow(
         )
     if not (np.isfinite(ref).all() and np.isfinite(mov).all()):
         raise InputError("reference and moving must be finite; fill NaN pixels before refining")
-    _check_window(window_px, iterations)
+    check_window(window_px, iterations, iterations_name="iterations")
     basis = prepare_reference(ref, window_px=window_px)
     return refine_with_basis(basis, mov, fl, iterations=int(iterations))
 
@@ -357,15 +302,15 @@ def compute_flow(
     on the preset and the texture contrast (see :class:`FlowTracker` Notes), which the
     refinement removes. :class:`FlowTracker` refines on the unquantised images instead.
     """
-    _check_choice("method", method, FLOW_METHODS)
-    ref = _check_image("reference_u8", reference_u8, dtype=np.uint8)
-    mov = _check_image("moving_u8", moving_u8, dtype=np.uint8)
+    check_choice("method", method, FLOW_METHODS)
+    ref = check_image("reference_u8", reference_u8, dtype=np.uint8)
+    mov = check_image("moving_u8", moving_u8, dtype=np.uint8)
     if mov.shape != ref.shape:
         raise InputError(
             f"moving_u8 must have the shape of reference_u8 {ref.shape}, got {mov.shape}; "
             "pass frames of one recording"
         )
-    _check_window(window_px, refine_iterations)
+    check_window(window_px, refine_iterations)
     ref = np.ascontiguousarray(ref)
     mov = np.ascontiguousarray(mov)
     flow = FLOW_METHODS[method](ref, mov, preset=preset).astype(np.float32, copy=False)
@@ -412,13 +357,13 @@ def estimate_rigid_shift(
     the drift when contracting regions pull in balanced directions or cover less than half
     of the pixels used; a whole field sliding one way is indistinguishable from drift.
     """
-    fl = _check_flow(flow)
+    fl = check_flow(flow)
     finite = np.isfinite(fl).all(axis=2)
     if background is not None:
-        use = finite & _check_mask("background", background, fl.shape[:2])
+        use = finite & check_mask("background", background, fl.shape[:2])
         if np.count_nonzero(use) >= _MIN_BACKGROUND_PX:
             return np.median(fl[use], axis=0).astype(np.float64)
-    use = finite if mask is None else finite & _check_mask("mask", mask, fl.shape[:2])
+    use = finite if mask is None else finite & check_mask("mask", mask, fl.shape[:2])
     # The flow is smooth over the refinement window, so a regular sub-grid of at most
     # ~65k pixels gives the same median several times faster on large frames.
     step = max(1, int(np.ceil(np.sqrt(use.size / _MAX_MEDIAN_PX))))
@@ -463,8 +408,8 @@ def mean_displacement_um(
     A magnitude of noisy vectors is biased upward (Rice distribution): the floor at rest is
     documented in :class:`FlowTracker`.
     """
-    fl = _check_flow(flow)
-    m = _check_mask("mask", mask, fl.shape[:2])
+    fl = check_flow(flow)
+    m = check_mask("mask", mask, fl.shape[:2])
     if not m.any():
         raise InputError("mask has no True pixel; pass a cell mask that covers cells")
     if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
@@ -578,11 +523,11 @@ class FlowTracker:
         scale: tuple[float, float] | None = None,
         background: np.ndarray | None = None,
     ) -> None:
-        template = _check_image("template_nm", template_nm)
-        mask_arr = _check_mask("mask", mask, template.shape)
-        _check_choice("method", method, FLOW_METHODS)
-        _check_choice("preset", preset, _PRESETS[method])
-        _check_window(window_px, refine_iterations)
+        template = check_image("template_nm", template_nm)
+        mask_arr = check_mask("mask", mask, template.shape)
+        check_choice("method", method, FLOW_METHODS)
+        check_choice("preset", preset, _PRESETS[method])
+        check_window(window_px, refine_iterations)
         if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
             raise InputError(
                 f"pixel_size_um must be a positive number, got {pixel_size_um!r}; "
@@ -596,14 +541,14 @@ class FlowTracker:
         self.scale = (
             flow_scale(template, mask=None, percentiles=percentiles)
             if scale is None
-            else _check_scale(scale)
+            else check_scale(scale)
         )
         filled = np.where(finite, template, np.median(template[finite])).astype(np.float32)
         self._template_nm = filled
         self.template_u8, self.template_clipped_fraction = to_uint8(filled, self.scale)
         self.mask = mask_arr & finite
         self.background = (
-            None if background is None else _check_mask("background", background, template.shape)
+            None if background is None else check_mask("background", background, template.shape)
         )
         self.pixel_size_um = float(pixel_size_um)
         self.method = method
@@ -634,7 +579,7 @@ class FlowTracker:
         InputError
             Frame shape differs from the template.
         """
-        frame = _check_image("frame_nm", frame_nm)
+        frame = check_image("frame_nm", frame_nm)
         if frame.shape != self._template_nm.shape:
             raise InputError(
                 f"frame_nm must have the template shape {self._template_nm.shape}, got "

@@ -5,15 +5,11 @@ exact sub-pixel positions, and the truth is computed from the noise-free field b
 landmark definitions.
 """
 
+from beatlab.synth._checks import CONTRACTIONS, KINDS
 from beatlab.synth._schedule import EAD_PROMINENCE, beat_segments, evaluate_activation
-from beatlab.synth._simulate import (
-    CONTRACTIONS,
-    KINDS,
-    SyntheticRecording,
-    simulate_recording,
-    write_simulation,
-)
+from beatlab.synth._simulate import SyntheticRecording, simulate_recording
 from beatlab.synth._truth import BEAT_COLUMNS, TRUTH_DT_S
+from beatlab.synth._write import write_simulation
 
 __all__ = [
     "BEAT_COLUMNS",

@@ -100,7 +100,7 @@ def test_locate_sideband_rejects_non_holograms(kind):
         frame = gaussian_filter(rng.normal(size=(64, 64)), 4.0) * 100 + 500
     else:
         frame = np.full((64, 64), 7.0)
-    with pytest.raises(InputError, match="no side-band found.*--kind phase/opd"):
+    with pytest.raises(InputError, match=r"no side-band found.*--kind phase/opd"):
         locate_sideband(frame)
 
 
@@ -143,9 +143,11 @@ def test_demodulation_noise_free_phase_error(carrier):
 def test_output_pixels_stay_square(shape):
     k = (0.2, 0.15)
     filt = SidebandFilter(shape, k, auto_radius(k))
-    cy, cx = filt.output_shape
-    assert cy / shape[0] == pytest.approx(cx / shape[1], rel=1e-9)
-    assert 2 * auto_radius(k) * shape[0] <= cy <= shape[0]
+    by, bx = filt._band_shape  # the inverse-transform grid sets the output pixel size
+    assert by / shape[0] == pytest.approx(bx / shape[1], rel=1e-9)
+    assert filt.scale == pytest.approx(shape[0] / by)
+    assert 2 * auto_radius(k) * shape[0] <= by <= shape[0]
+    assert filt.output_shape == (by - 2 * filt.trim_px, bx - 2 * filt.trim_px)
 
 
 def test_radius_rules():
@@ -167,8 +169,8 @@ def test_band_limit_of_smooth_field_is_close_to_field():
     band = filt.band_limit(np.exp(2j * np.pi * opd / LAMBDA_NM))
     cy, cx = filt.output_shape
     # sample positions of the output grid on the input grid
-    ys = (np.arange(cy) * filt.scale).round().astype(int)
-    xs = (np.arange(cx) * filt.scale).round().astype(int)
+    ys = (filt.origin_px + np.arange(cy) * filt.scale).round().astype(int)
+    xs = (filt.origin_px + np.arange(cx) * filt.scale).round().astype(int)
     sampled = opd[np.ix_(ys, xs)]
     got = (
         unwrap_phase_ls(np.angle(band / filt.band_limit(np.ones(shape)))) * LAMBDA_NM / (2 * np.pi)

@@ -246,3 +246,15 @@ def test_confluent_layout_covers_the_field_and_beats():
     assert sim.truth["beats"][0]["displacement_um"] == pytest.approx(_mean_unit(sim), rel=1e-9)
     # a confluent sheet has no cell-free background
     assert np.percentile(sim.rest_opd_nm, 0.5) > 60
+
+
+def test_clusters_sharing_one_schedule_have_one_activation_row():
+    sim = simulate_recording(
+        duration_s=2.5, fps=30.0, n_clusters=2, rng=12, shape_px=(96, 96), noise_nm=0.0
+    )
+    assert sim.activation.shape == (75,)
+    assert sim.region_displacement_um.shape == (2, 75)
+    assert sim.truth["summary"]["beat_count"] == 2
+    for region in sim.truth["regions"]:
+        assert region["summary"]["beat_count"] == 2
+        assert region["area_px"] > 0
