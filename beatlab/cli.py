@@ -15,7 +15,7 @@ from pathlib import Path
 from beatlab._version import __version__
 from beatlab.errors import AnalysisError, BeatlabError, BeatlabWarning, ConfigError, InputError
 
-__all__ = ["main", "build_parser"]
+__all__ = ["build_parser", "main"]
 
 EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
 
@@ -39,68 +39,100 @@ def _positive(text: str) -> float:
 
 def _add_metadata(p, *, kind=True):
     if kind:
-        p.add_argument("--kind", choices=("opd", "phase", "hologram"),
-                       help="what the pixel values are (default: as recorded in the file, "
-                       "else opd)")
+        p.add_argument(
+            "--kind",
+            choices=("opd", "phase", "hologram"),
+            help="what the pixel values are (default: as recorded in the file, else opd)",
+        )
     p.add_argument("--fps", type=_positive, metavar="HZ", help="frame rate; overrides the file")
-    p.add_argument("--pixel-size-um", type=_positive, metavar="UM",
-                   help="sample-plane pixel size (camera pitch / magnification)")
-    p.add_argument("--wavelength-nm", type=_positive, metavar="NM",
-                   help="illumination wavelength (needed for phase and holograms)")
+    p.add_argument(
+        "--pixel-size-um",
+        type=_positive,
+        metavar="UM",
+        help="sample-plane pixel size (camera pitch / magnification)",
+    )
+    p.add_argument(
+        "--wavelength-nm",
+        type=_positive,
+        metavar="NM",
+        help="illumination wavelength (needed for phase and holograms)",
+    )
 
 
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``beatlab`` command."""
-    parser = _Parser(prog="beatlab", description="Contraction, rhythm and drug-response "
-                     "analysis of beating heart-muscle cells from phase time-lapses. Research "
-                     "use only.")
+    parser = _Parser(
+        prog="beatlab",
+        description="Contraction, rhythm and drug-response "
+        "analysis of beating heart-muscle cells from phase time-lapses. Research "
+        "use only.",
+    )
     parser.add_argument("--version", action="version", version=f"beatlab {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks and debug logs")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
-    a = sub.add_parser("analyze", help="find and measure every beat of one recording",
-                       description="Analyse one recording and write summary.json, beats.csv, "
-                       "trace.csv, average_beat.csv, region tables, maps and figures.")
-    a.add_argument("path", metavar="PATH", help="OME-TIFF, TIFF, .npy, frame folder or "
-                   "file.h5:/dataset")
-    a.add_argument("--out", metavar="DIR", help="output folder (default: PATH stem + "
-                   "'_beatlab')")
+    a = sub.add_parser(
+        "analyze",
+        help="find and measure every beat of one recording",
+        description="Analyse one recording and write summary.json, beats.csv, "
+        "trace.csv, average_beat.csv, region tables, maps and figures.",
+    )
+    a.add_argument(
+        "path", metavar="PATH", help="OME-TIFF, TIFF, .npy, frame folder or file.h5:/dataset"
+    )
+    a.add_argument("--out", metavar="DIR", help="output folder (default: PATH stem + '_beatlab')")
     _add_metadata(a)
-    a.add_argument("--reference", metavar="PATH", help="sample-free hologram frame(s) for "
-                   "--kind hologram")
-    a.add_argument("--regions", metavar="LABELS.tif", help="label image of regions to "
-                   "analyse separately (0 outside)")
+    a.add_argument(
+        "--reference", metavar="PATH", help="sample-free hologram frame(s) for --kind hologram"
+    )
+    a.add_argument(
+        "--regions",
+        metavar="LABELS.tif",
+        help="label image of regions to analyse separately (0 outside)",
+    )
     a.add_argument("--config", metavar="FILE", help="TOML file of parameter overrides")
     a.add_argument("--no-figures", action="store_true", help="skip the PNG/SVG figures")
 
-    r = sub.add_parser("reconstruct", help="off-axis holograms to an OPD OME-TIFF",
-                       description="Reconstruct OPD (nm) frames from raw off-axis holograms.")
+    r = sub.add_parser(
+        "reconstruct",
+        help="off-axis holograms to an OPD OME-TIFF",
+        description="Reconstruct OPD (nm) frames from raw off-axis holograms.",
+    )
     r.add_argument("path", metavar="HOLOGRAMS")
     r.add_argument("--reference", metavar="PATH", help="sample-free hologram frame(s)")
     r.add_argument("--wavelength-nm", type=_positive, metavar="NM", required=True)
-    r.add_argument("--pixel-size-um", type=_positive, metavar="UM",
-                   help="sample-plane camera pixel size")
+    r.add_argument(
+        "--pixel-size-um", type=_positive, metavar="UM", help="sample-plane camera pixel size"
+    )
     r.add_argument("--fps", type=_positive, metavar="HZ")
     r.add_argument("--out", metavar="FILE", required=True, help="output OPD .ome.tif")
     r.add_argument("--config", metavar="FILE", help="TOML file ([holography] section)")
 
-    s = sub.add_parser("simulate", help="render a synthetic beating culture with its truth",
-                       description="Render a synthetic recording of a beating culture with "
-                       "exact ground truth (OME-TIFF + truth JSON).")
+    s = sub.add_parser(
+        "simulate",
+        help="render a synthetic beating culture with its truth",
+        description="Render a synthetic recording of a beating culture with "
+        "exact ground truth (OME-TIFF + truth JSON).",
+    )
     s.add_argument("--out", metavar="FILE", required=True, help="output .ome.tif")
-    s.add_argument("--kind", choices=("opd", "phase", "wrapped_phase", "hologram"),
-                   default="opd")
+    s.add_argument("--kind", choices=("opd", "phase", "wrapped_phase", "hologram"), default="opd")
     s.add_argument("--layout", choices=("clusters", "confluent"), default="clusters")
     s.add_argument("--duration-s", type=_positive, default=10.0, metavar="S")
     s.add_argument("--fps", type=_positive, default=30.0, metavar="HZ")
     s.add_argument("--size-px", type=int, default=128, metavar="N", help="frame side")
     s.add_argument("--pixel-size-um", type=_positive, default=0.5, metavar="UM")
     s.add_argument("--wavelength-nm", type=_positive, default=632.8, metavar="NM")
-    s.add_argument("--rate-bpm", type=float, default=60.0, metavar="BPM",
-                   help="beating rate; 0 for a culture that does not beat")
-    s.add_argument("--ibi-cv", type=float, default=0.0, metavar="CV",
-                   help="interval variability (0 regular)")
+    s.add_argument(
+        "--rate-bpm",
+        type=float,
+        default=60.0,
+        metavar="BPM",
+        help="beating rate; 0 for a culture that does not beat",
+    )
+    s.add_argument(
+        "--ibi-cv", type=float, default=0.0, metavar="CV", help="interval variability (0 regular)"
+    )
     s.add_argument("--strain", type=float, default=0.03, help="peak fractional shortening")
     s.add_argument("--noise-nm", type=float, default=1.0, metavar="NM")
     s.add_argument("--seed", type=int, default=0)
@@ -110,13 +142,25 @@ def build_parser() -> argparse.ArgumentParser:
 def _cmd_analyze(args) -> int:
     from beatlab.pipeline import analyze
 
-    result = analyze(args.path, args.config, kind=args.kind, fps=args.fps,
-                     pixel_size_um=args.pixel_size_um, wavelength_nm=args.wavelength_nm,
-                     reference=args.reference, regions=args.regions,
-                     progress=sys.stderr.isatty())
-    out = Path(args.out) if args.out else Path(
-        str(Path(args.path.split(":/")[0])).removesuffix(".ome.tif").removesuffix(".tif")
-        + "_beatlab")
+    result = analyze(
+        args.path,
+        args.config,
+        kind=args.kind,
+        fps=args.fps,
+        pixel_size_um=args.pixel_size_um,
+        wavelength_nm=args.wavelength_nm,
+        reference=args.reference,
+        regions=args.regions,
+        progress=sys.stderr.isatty(),
+    )
+    out = (
+        Path(args.out)
+        if args.out
+        else Path(
+            str(Path(args.path.split(":/")[0])).removesuffix(".ome.tif").removesuffix(".tif")
+            + "_beatlab"
+        )
+    )
     result.save(out, figures=not args.no_figures)
     s = result.summary
     rate = s.get("beat_rate_bpm")
@@ -130,10 +174,16 @@ def _cmd_reconstruct(args) -> int:
     from beatlab.holography import reconstruct_file
 
     cfg = load_config(args.config)
-    out = reconstruct_file(args.path, args.out, wavelength_nm=args.wavelength_nm,
-                           pixel_size_um=args.pixel_size_um, fps=args.fps,
-                           reference=args.reference, options=cfg["holography"],
-                           progress=sys.stderr.isatty())
+    out = reconstruct_file(
+        args.path,
+        args.out,
+        wavelength_nm=args.wavelength_nm,
+        pixel_size_um=args.pixel_size_um,
+        fps=args.fps,
+        reference=args.reference,
+        options=cfg["holography"],
+        progress=sys.stderr.isatty(),
+    )
     print(f"wrote {out}")
     return EXIT_OK
 
@@ -142,26 +192,36 @@ def _cmd_simulate(args) -> int:
     from beatlab.synth import simulate_recording, write_simulation
 
     sim = simulate_recording(
-        duration_s=args.duration_s, fps=args.fps, shape_px=(args.size_px, args.size_px),
-        pixel_size_um=args.pixel_size_um, wavelength_nm=args.wavelength_nm,
-        layout=args.layout, rate_bpm=args.rate_bpm, ibi_cv=args.ibi_cv, strain=args.strain,
-        noise_nm=args.noise_nm, kind=args.kind, rng=args.seed)
+        duration_s=args.duration_s,
+        fps=args.fps,
+        shape_px=(args.size_px, args.size_px),
+        pixel_size_um=args.pixel_size_um,
+        wavelength_nm=args.wavelength_nm,
+        layout=args.layout,
+        rate_bpm=args.rate_bpm,
+        ibi_cv=args.ibi_cv,
+        strain=args.strain,
+        noise_nm=args.noise_nm,
+        kind=args.kind,
+        rng=args.seed,
+    )
     paths = write_simulation(sim, args.out)
     for role, path in paths.items():
         print(f"{role}: {path}")
     return EXIT_OK
 
 
-_COMMANDS = {"analyze": _cmd_analyze, "reconstruct": _cmd_reconstruct,
-             "simulate": _cmd_simulate}
+_COMMANDS = {"analyze": _cmd_analyze, "reconstruct": _cmd_reconstruct, "simulate": _cmd_simulate}
 
 
 def main(argv: list[str] | None = None) -> int:
     """Run the ``beatlab`` command; return the exit code."""
     parser = build_parser()
     args = parser.parse_args(argv)
-    logging.basicConfig(level=logging.DEBUG if args.debug else logging.WARNING,
-                        format="beatlab: %(levelname)s: %(message)s")
+    logging.basicConfig(
+        level=logging.DEBUG if args.debug else logging.WARNING,
+        format="beatlab: %(levelname)s: %(message)s",
+    )
 
     def show_warning(message, category, filename, lineno, file=None, line=None):
         print(f"beatlab: warning: {message}", file=sys.stderr)
@@ -187,6 +247,9 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as exc:  # an unexpected failure: one line, exit 1
         if args.debug:
             raise
-        print(f"beatlab: error: unexpected {type(exc).__name__}: {exc} (rerun with --debug "
-              "for the traceback and report it)", file=sys.stderr)
+        print(
+            f"beatlab: error: unexpected {type(exc).__name__}: {exc} (rerun with --debug "
+            "for the traceback and report it)",
+            file=sys.stderr,
+        )
         return EXIT_FAILURE

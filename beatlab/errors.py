@@ -1,12 +1,12 @@
 """One error hierarchy and one warning class for the whole package."""
 
 __all__ = [
+    "AnalysisError",
     "BeatlabError",
+    "BeatlabWarning",
+    "ConfigError",
     "InputError",
     "MetadataError",
-    "AnalysisError",
-    "ConfigError",
-    "BeatlabWarning",
 ]
 
 

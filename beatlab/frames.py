@@ -43,9 +43,16 @@ class OPDSource:
     by a wavelength between frames.
     """
 
-    def __init__(self, recording: Recording, *, opd_scale: float = 1.0, phase_scale: float = 1.0,
-                 reference: np.ndarray | None = None, holography: dict | None = None,
-                 chunk_frames: int = 64):
+    def __init__(
+        self,
+        recording: Recording,
+        *,
+        opd_scale: float = 1.0,
+        phase_scale: float = 1.0,
+        reference: np.ndarray | None = None,
+        holography: dict | None = None,
+        chunk_frames: int = 64,
+    ):
         self.recording = recording
         self.opd_scale = float(opd_scale)
         self.phase_scale = float(phase_scale)
@@ -64,9 +71,12 @@ class OPDSource:
 
             recording.require("pixel_size_um")
             self._reconstructor = OffAxisReconstructor.fit(
-                recording.frame(0), wavelength_nm=recording.wavelength_nm,
-                pixel_size_um=recording.pixel_size_um, reference=reference,
-                **(holography or {}))
+                recording.frame(0),
+                wavelength_nm=recording.wavelength_nm,
+                pixel_size_um=recording.pixel_size_um,
+                reference=reference,
+                **(holography or {}),
+            )
             self.pixel_size_um = float(self._reconstructor.output_pixel_size_um)
             self.shape = tuple(self._reconstructor.output_shape)
         elif recording.kind != "opd":
@@ -90,13 +100,15 @@ class OPDSource:
             out = np.empty(block.shape, dtype=np.float32)
             for k, frame in enumerate(block):
                 phase = self._phase_ref_unwrapped + wrapped_difference(
-                    frame.astype(np.float64) * self.phase_scale, self._phase_ref)
+                    frame.astype(np.float64) * self.phase_scale, self._phase_ref
+                )
                 out[k] = phase_to_opd(phase, self.recording.wavelength_nm)
             return out
         return np.stack(list(self._reconstructor.opd_frames(block)))
 
-    def chunks(self, *, start: int = 0, stop: int | None = None
-               ) -> Iterator[tuple[int, np.ndarray]]:
+    def chunks(
+        self, *, start: int = 0, stop: int | None = None
+    ) -> Iterator[tuple[int, np.ndarray]]:
         """Yield ``(first_index, opd_frames)`` float32 (n, Y, X) nm."""
         for i0, block in self.recording.chunks(self.chunk_frames, start=start, stop=stop):
             yield i0, self._convert(block)

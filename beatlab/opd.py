@@ -16,13 +16,13 @@ from scipy import fft
 from beatlab.errors import BeatlabWarning, InputError
 
 __all__ = [
-    "phase_to_opd",
+    "check_cell_sign",
     "opd_to_phase",
+    "phase_to_opd",
+    "unwrap_in_time",
+    "unwrap_phase_ls",
     "wrap_phase",
     "wrapped_difference",
-    "unwrap_phase_ls",
-    "unwrap_in_time",
-    "check_cell_sign",
 ]
 
 TWO_PI = 2.0 * np.pi

@@ -9,7 +9,7 @@ import numpy as np
 
 from beatlab.io.writers import atomic_path, write_json
 
-__all__ = ["save_analysis", "CAUTION"]
+__all__ = ["CAUTION", "save_analysis"]
 
 #: Shown in reports and written into every summary.
 CAUTION = (
@@ -26,8 +26,9 @@ def _write_csv(df, path: Path) -> Path:
     return path
 
 
-def save_analysis(analysis, out_dir: str | os.PathLike, *, figures: bool = True
-                  ) -> dict[str, Path]:
+def save_analysis(
+    analysis, out_dir: str | os.PathLike, *, figures: bool = True
+) -> dict[str, Path]:
     """Write summary.json, beats.csv, trace.csv, average_beat.csv, region files, maps, figures.
 
     Parameters
@@ -56,8 +57,7 @@ def save_analysis(analysis, out_dir: str | os.PathLike, *, figures: bool = True
     paths["regions"] = _write_csv(analysis.regions, out / "regions.csv")
     paths["region_beats"] = _write_csv(analysis.region_beats, out / "region_beats.csv")
     paths["region_traces"] = _write_csv(analysis.region_traces, out / "region_traces.csv")
-    arrays = {k: np.asarray(v) for k, v in analysis.maps.items()
-              if isinstance(v, np.ndarray)}
+    arrays = {k: np.asarray(v) for k, v in analysis.maps.items() if isinstance(v, np.ndarray)}
     arrays["mask"] = analysis.mask
     arrays["template_nm"] = analysis.template
     if analysis.region_labels is not None:
@@ -73,10 +73,16 @@ def save_analysis(analysis, out_dir: str | os.PathLike, *, figures: bool = True
         from beatlab.plots.trace import plot_trace
 
         paths["trace_png"] = save_figure(
-            lambda ax: plot_trace(analysis.trace, analysis.beats, ax=ax), out / "trace.png",
-            size=(7.0, 3.0))
+            lambda ax: plot_trace(analysis.trace, analysis.beats, ax=ax),
+            out / "trace.png",
+            size=(7.0, 3.0),
+        )
         paths["maps_png"] = save_figure(
-            lambda fig: plot_maps(analysis.maps, analysis.template, analysis.mask, fig=fig,
-                                 pixel_size_um=px_um),
-            out / "maps.png", size=(9.0, 3.0), whole_figure=True)
+            lambda fig: plot_maps(
+                analysis.maps, analysis.template, analysis.mask, fig=fig, pixel_size_um=px_um
+            ),
+            out / "maps.png",
+            size=(9.0, 3.0),
+            whole_figure=True,
+        )
     return paths

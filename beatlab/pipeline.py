@@ -88,24 +88,48 @@ class Analysis:
         return save_analysis(self, out_dir, figures=figures)
 
 
-def _beats_and_summary(trace: np.ndarray, times_s: np.ndarray, velocity: np.ndarray,
-                       opd_change: np.ndarray, cfg: dict, start_s: float, end_s: float
-                       ) -> tuple[pd.DataFrame, dict, np.ndarray]:
+def _beats_and_summary(
+    trace: np.ndarray,
+    times_s: np.ndarray,
+    velocity: np.ndarray,
+    opd_change: np.ndarray,
+    cfg: dict,
+    start_s: float,
+    end_s: float,
+) -> tuple[pd.DataFrame, dict, np.ndarray]:
     b = cfg["beats"]
     r = cfg["rhythm"]
     finite = np.isfinite(trace)
-    work = np.where(finite, trace, np.interp(times_s, times_s[finite], trace[finite])) \
-        if not finite.all() and finite.sum() >= 2 else trace
-    peaks = detect_beats(work, times_s, max_rate_bpm=b["max_rate_bpm"], min_snr=b["min_snr"],
-                         min_relative_prominence=b["min_relative_prominence"])
-    beats = measure_beats(work, times_s, peaks, velocity=velocity, opd_change=opd_change,
-                          secondary_prominence=b["secondary_prominence"],
-                          secondary_min_level=b["secondary_min_level"],
-                          irregular_tolerance=b["irregular_tolerance"])
-    summary = summarize_rhythm(beats, start_s=start_s, end_s=end_s,
-                               irregular_cv=r["irregular_cv"],
-                               irregular_fraction_max=r["irregular_fraction_max"],
-                               pause_factor=r["pause_factor"])
+    work = (
+        np.where(finite, trace, np.interp(times_s, times_s[finite], trace[finite]))
+        if not finite.all() and finite.sum() >= 2
+        else trace
+    )
+    peaks = detect_beats(
+        work,
+        times_s,
+        max_rate_bpm=b["max_rate_bpm"],
+        min_snr=b["min_snr"],
+        min_relative_prominence=b["min_relative_prominence"],
+    )
+    beats = measure_beats(
+        work,
+        times_s,
+        peaks,
+        velocity=velocity,
+        opd_change=opd_change,
+        secondary_prominence=b["secondary_prominence"],
+        secondary_min_level=b["secondary_min_level"],
+        irregular_tolerance=b["irregular_tolerance"],
+    )
+    summary = summarize_rhythm(
+        beats,
+        start_s=start_s,
+        end_s=end_s,
+        irregular_cv=r["irregular_cv"],
+        irregular_fraction_max=r["irregular_fraction_max"],
+        pause_factor=r["pause_factor"],
+    )
     noise = float(estimate_noise(work))
     amp = summary.get("displacement_um")
     summary["trace_noise_um"] = noise
@@ -117,18 +141,17 @@ def _load_regions(path, shape) -> np.ndarray:
     rec = open_recording(path, fps=1.0)
     labels = np.asarray(rec.frames.read(0, 1)[0])
     if labels.shape != tuple(shape):
-        raise InputError(f"--regions {path}: label image shape {labels.shape} differs from the "
-                         f"analysed frames {tuple(shape)}; give a label image of the same size")
+        raise InputError(
+            f"--regions {path}: label image shape {labels.shape} differs from the "
+            f"analysed frames {tuple(shape)}; give a label image of the same size"
+        )
     if not np.issubdtype(labels.dtype, np.integer):
         if not np.allclose(labels, np.round(labels)):
-            raise InputError(f"--regions {path}: not a label image (non-integer values); give "
-                             "an integer image with 0 outside regions and 1..n inside")
+            raise InputError(
+                f"--regions {path}: not a label image (non-integer values); give "
+                "an integer image with 0 outside regions and 1..n inside"
+            )
     return np.round(labels).astype(np.int64)
-
-
-def _load_reference(path) -> np.ndarray:
-    ref = open_recording(path, fps=1.0, kind="hologram")
-    return np.concatenate([block for _, block in ref.chunks(64)], axis=0)
 
 
 def analyze(
@@ -183,48 +206,74 @@ def analyze(
     from tqdm.auto import tqdm
 
     cfg = load_config(config)
-    rec = recording if isinstance(recording, Recording) else open_recording(
-        recording, kind=kind, fps=fps, pixel_size_um=pixel_size_um, wavelength_nm=wavelength_nm)
+    rec = (
+        recording
+        if isinstance(recording, Recording)
+        else open_recording(
+            recording, kind=kind, fps=fps, pixel_size_um=pixel_size_um, wavelength_nm=wavelength_nm
+        )
+    )
     rec.require("fps", "pixel_size_um")
     if rec.n_frames < cfg["input"]["min_frames"]:
-        raise InputError(f"{rec.source}: only {rec.n_frames} frames; at least "
-                         f"{cfg['input']['min_frames']} are needed (a few beats' worth)")
-    if isinstance(reference, (str, os.PathLike)):
-        reference = _load_reference(reference)
-    h = cfg["holography"]
-    holo = {"sideband": h["sideband"],
-            "radius": h["radius"] if h["radius"] > 0 else "auto",
-            "na": h["na"] if h["na"] > 0 else None, "n_medium": h["n_medium"],
-            "refocus_um": ("auto" if h["autofocus"] else (h["refocus_um"] or None))}
-    source = OPDSource(rec, opd_scale=cfg["input"]["opd_scale"],
-                       phase_scale=cfg["input"]["phase_scale"], reference=reference,
-                       holography=holo, chunk_frames=cfg["input"]["chunk_frames"])
+        raise InputError(
+            f"{rec.source}: only {rec.n_frames} frames; at least "
+            f"{cfg['input']['min_frames']} are needed (a few beats' worth)"
+        )
+    holo = None
+    if rec.kind == "hologram":
+        from beatlab.holography import load_reference, reconstructor_options
+
+        if isinstance(reference, (str, os.PathLike)):
+            reference = load_reference(reference)
+        holo = reconstructor_options(cfg["holography"])
+    source = OPDSource(
+        rec,
+        opd_scale=cfg["input"]["opd_scale"],
+        phase_scale=cfg["input"]["phase_scale"],
+        reference=reference,
+        holography=holo,
+        chunk_frames=cfg["input"]["chunk_frames"],
+    )
     px_um = float(source.pixel_size_um)
     times = np.asarray(rec.times_s, dtype=float)
     n = rec.n_frames
     t_cfg = cfg["template"]
-    rest = estimate_rest_template(source, rest_quantile=t_cfg["rest_quantile"],
-                                  max_rest_frames=t_cfg["max_rest_frames"],
-                                  level_tilt=t_cfg["level_tilt"], progress=progress)
+    rest = estimate_rest_template(
+        source,
+        rest_quantile=t_cfg["rest_quantile"],
+        max_rest_frames=t_cfg["max_rest_frames"],
+        level_tilt=t_cfg["level_tilt"],
+        progress=progress,
+    )
     template = rest.template
     if not np.isfinite(template).any():
         raise InputError(f"{rec.source}: the rest template is all NaN; nothing to analyse")
     m_cfg = cfg["mask"]
-    template_noise = (float(np.sqrt(np.nanmedian(rest.noise_var) / rest.n_frames_used))
-                      if rest.n_frames_used > 1 else None)
-    cells = make_cell_mask(template, pixel_size_um=px_um, method=m_cfg["method"],
-                           threshold_sigma=m_cfg["threshold_sigma"],
-                           min_area_um2=m_cfg["min_area_um2"],
-                           confluent_fraction=m_cfg["confluent_fraction"],
-                           noise_nm=template_noise)
+    template_noise = (
+        float(np.sqrt(np.nanmedian(rest.noise_var) / rest.n_frames_used))
+        if rest.n_frames_used > 1
+        else None
+    )
+    cells = make_cell_mask(
+        template,
+        pixel_size_um=px_um,
+        method=m_cfg["method"],
+        threshold_sigma=m_cfg["threshold_sigma"],
+        min_area_um2=m_cfg["min_area_um2"],
+        confluent_fraction=m_cfg["confluent_fraction"],
+        noise_nm=template_noise,
+    )
     mask = cells.mask
     if not mask.any():
-        raise InputError(f"{rec.source}: no cells found in the field (mask empty); try "
-                         "[mask] method = \"all\" in a --config file")
+        raise InputError(
+            f"{rec.source}: no cells found in the field (mask empty); try "
+            '[mask] method = "all" in a --config file'
+        )
     user_regions = regions is not None
     if user_regions:
-        labels = regions if isinstance(regions, np.ndarray) else _load_regions(regions,
-                                                                                source.shape)
+        labels = (
+            regions if isinstance(regions, np.ndarray) else _load_regions(regions, source.shape)
+        )
         labels = np.where(np.isfinite(template), labels, 0).astype(np.int64)
     else:
         labels = cells.labels if cells.method == "threshold" else mask.astype(np.int64)
@@ -234,15 +283,19 @@ def analyze(
     background = None
     if rigid in ("auto", "background") and cells.background.sum() > 0.05 * mask.size:
         background = cells.background
-    tracker = FlowTracker(template, mask, pixel_size_um=px_um, method=flow_cfg["method"],
-                          preset=flow_cfg["preset"],
-                          refine_iterations=flow_cfg["refine_iterations"],
-                          window_px=flow_cfg["window_px"],
-                          percentiles=(flow_cfg["percentile_low"],
-                                       flow_cfg["percentile_high"]),
-                          background=background if rigid != "none" else None)
+    tracker = FlowTracker(
+        template,
+        mask,
+        pixel_size_um=px_um,
+        method=flow_cfg["method"],
+        preset=flow_cfg["preset"],
+        refine_iterations=flow_cfg["refine_iterations"],
+        window_px=flow_cfg["window_px"],
+        percentiles=(flow_cfg["percentile_low"], flow_cfg["percentile_high"]),
+        background=background if rigid != "none" else None,
+    )
     leveller = PlaneLeveller(template, tilt=t_cfg["level_tilt"])
-    tile_px = max(4, int(round(cfg["maps"]["tile_um"] / px_um)))
+    tile_px = max(4, round(cfg["maps"]["tile_um"] / px_um))
     tiles = tile_labels(source.shape, tile_px=tile_px)
     n_tiles = int(tiles.max()) + 1
     grid_shape = (-(-source.shape[0] // tile_px), -(-source.shape[1] // tile_px))
@@ -250,7 +303,6 @@ def analyze(
     flat_labels = labels.ravel()
     label_area = np.bincount(flat_labels, minlength=n_labels + 1).astype(float)
     mask_flat = mask.ravel()
-    mask_count = max(int(mask.sum()), 1)
 
     disp = np.full(n, np.nan)
     shifts = np.zeros((n, 2))
@@ -283,18 +335,33 @@ def analyze(
         lcnt2 = np.bincount(flat_labels[ok2], minlength=n_labels + 1)
         msq = sflat[mask_flat]
         with np.errstate(invalid="ignore", divide="ignore"):
-            return (value, shift, float(np.nanmean(msq)) if np.isfinite(
-                msq).any() else np.nan, meas.clipped_fraction, tmean,
-                (lsum / lcnt)[1:], (lsq / lcnt2)[1:])
+            return (
+                value,
+                shift,
+                float(np.nanmean(msq)) if np.isfinite(msq).any() else np.nan,
+                meas.clipped_fraction,
+                tmean,
+                (lsum / lcnt)[1:],
+                (lsq / lcnt2)[1:],
+            )
 
     workers = workers or min(4, os.cpu_count() or 1)
-    with ThreadPoolExecutor(max_workers=workers) as pool, tqdm(
-            total=n, desc="analysing", unit="frame", disable=not progress, leave=False) as bar:
+    with (
+        ThreadPoolExecutor(max_workers=workers) as pool,
+        tqdm(total=n, desc="analysing", unit="frame", disable=not progress, leave=False) as bar,
+    ):
         for i0, block in source.chunks():
             for k, res in enumerate(pool.map(one_frame, block)):
                 i = i0 + k
-                disp[i], shifts[i], ms[i], clipped[i], tile_tr[i], label_tr[:, i], \
-                    label_ms[:, i] = res
+                (
+                    disp[i],
+                    shifts[i],
+                    ms[i],
+                    clipped[i],
+                    tile_tr[i],
+                    label_tr[:, i],
+                    label_ms[:, i],
+                ) = res
             bar.update(len(block))
     if not np.isfinite(disp).any():
         raise InputError(f"{rec.source}: every frame is NaN inside the cell mask")
@@ -309,27 +376,46 @@ def analyze(
     factor = np.where(used, 1 - 1 / k, 1 + 1 / k) if k > 1 else np.ones(n)
     opd_change = opd_change_trace(ms, sigma2 * factor)
     v_cfg = cfg["velocity"]
-    velocity = velocity_trace(np.nan_to_num(disp, nan=np.nanmedian(disp)), times,
-                              window_ms=v_cfg["window_ms"], polyorder=v_cfg["polyorder"])
+    velocity = velocity_trace(
+        np.nan_to_num(disp, nan=np.nanmedian(disp)),
+        times,
+        window_ms=v_cfg["window_ms"],
+        polyorder=v_cfg["polyorder"],
+    )
     start_s = float(times[0])
     end_s = float(times[-1] + 1.0 / rec.fps)
-    beats, summary, _ = _beats_and_summary(disp, times, velocity, opd_change, cfg, start_s,
-                                           end_s)
+    beats, summary, _ = _beats_and_summary(disp, times, velocity, opd_change, cfg, start_s, end_s)
     drift_um = (shifts - shifts[0]) * px_um
-    trace = pd.DataFrame({
-        "time_s": times, "displacement_um": disp, "velocity_um_s": velocity,
-        "opd_change_nm": opd_change, "drift_x_um": drift_um[:, 0], "drift_y_um": drift_um[:, 1],
-    })
-    avg = average_beat(times, {"displacement_um": disp, "velocity_um_s": velocity,
-                               "opd_change_nm": opd_change},
-                       beats["onset_s"].dropna().to_numpy())
+    trace = pd.DataFrame(
+        {
+            "time_s": times,
+            "displacement_um": disp,
+            "velocity_um_s": velocity,
+            "opd_change_nm": opd_change,
+            "drift_x_um": drift_um[:, 0],
+            "drift_y_um": drift_um[:, 1],
+        }
+    )
+    avg = average_beat(
+        times,
+        {"displacement_um": disp, "velocity_um_s": velocity, "opd_change_nm": opd_change},
+        beats["onset_s"].dropna().to_numpy(),
+    )
 
     # maps
     onsets = beats["onset_s"].to_numpy(dtype=float) if len(beats) else np.array([])
     peaks_s = beats["peak_s"].to_numpy(dtype=float) if len(beats) else np.array([])
-    maps = build_maps(tile_tr, times, grid_shape=grid_shape, tile_um=tile_px * px_um,
-                      onsets_s=onsets, peaks_s=peaks_s, rest_frames=rest.rest,
-                      tile_coverage=coverage, min_snr=cfg["maps"]["min_snr"])
+    maps = build_maps(
+        tile_tr,
+        times,
+        grid_shape=grid_shape,
+        tile_um=tile_px * px_um,
+        onsets_s=onsets,
+        peaks_s=peaks_s,
+        rest_frames=rest.rest,
+        tile_coverage=coverage,
+        min_snr=cfg["maps"]["min_snr"],
+    )
     summary["beating_area_fraction"] = maps["beating_area_fraction"]
 
     # regions
@@ -339,17 +425,25 @@ def analyze(
     region_traces = {"time_s": times}
     region_set = None
     if n_labels and (user_regions or reg_cfg["detect"]):
-        region_set = find_regions(labels, label_tr, pixel_size_um=px_um,
-                                  min_area_um2=0.0 if user_regions else reg_cfg["min_area_um2"],
-                                  merge_correlation=reg_cfg["merge_correlation"],
-                                  merge=not user_regions)
+        region_set = find_regions(
+            labels,
+            label_tr,
+            pixel_size_um=px_um,
+            min_area_um2=0.0 if user_regions else reg_cfg["min_area_um2"],
+            merge_correlation=reg_cfg["merge_correlation"],
+            merge=not user_regions,
+        )
         for r_idx, members in enumerate(region_set.members, start=1):
             w = label_area[np.asarray(members)]
             msr = np.nansum(label_ms[np.asarray(members) - 1] * w[:, None], axis=0) / w.sum()
             r_opd = opd_change_trace(msr, sigma2 * factor)
             r_disp = np.asarray(region_set.traces[r_idx - 1], dtype=float)
-            r_vel = velocity_trace(np.nan_to_num(r_disp, nan=np.nanmedian(r_disp)), times,
-                                   window_ms=v_cfg["window_ms"], polyorder=v_cfg["polyorder"])
+            r_vel = velocity_trace(
+                np.nan_to_num(r_disp, nan=np.nanmedian(r_disp)),
+                times,
+                window_ms=v_cfg["window_ms"],
+                polyorder=v_cfg["polyorder"],
+            )
             rb, rs, _ = _beats_and_summary(r_disp, times, r_vel, r_opd, cfg, start_s, end_s)
             rb.insert(0, "region", r_idx)
             region_beats.append(rb)
@@ -361,50 +455,78 @@ def analyze(
         regions_df = region_table(region_set, region_summaries)
         region_labels = region_set.labels
     else:
-        regions_df = pd.DataFrame(columns=["region", "area_um2", "centroid_x_um",
-                                           "centroid_y_um"])
+        regions_df = pd.DataFrame(columns=["region", "area_um2", "centroid_x_um", "centroid_y_um"])
         region_labels = np.zeros(source.shape, dtype=np.int64)
-    region_beats_df = (pd.concat(region_beats, ignore_index=True) if region_beats
-                       else pd.DataFrame(columns=["region", *beats.columns]))
+    region_beats_df = (
+        pd.concat(region_beats, ignore_index=True)
+        if region_beats
+        else pd.DataFrame(columns=["region", *beats.columns])
+    )
 
     finite_shift = np.isfinite(drift_um).all(axis=1)
-    summary.update({
-        "n_regions": int(len(regions_df)),
-        "quality": {
-            "snr": summary.pop("snr"),
-            "trace_noise_um": summary.pop("trace_noise_um"),
-            "drift_max_um": float(np.max(np.hypot(*drift_um[finite_shift].T)))
-            if finite_shift.any() else None,
-            "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
-            "masked_fraction": cells.masked_fraction,
-            "mask_method": cells.method,
-            "clipped_fraction": float(np.mean(clipped)),
-            "template_clipped_fraction": float(tracker.template_clipped_fraction),
-            "rest_template_method": rest.method,
-            "rest_frames": int(rest.rest.sum()),
-            "template_frames": int(rest.n_frames_used),
-            "frame_noise_nm": float(np.sqrt(sigma2)) if sigma2 > 0 else None,
-            "uneven_timing": rec.uneven_timing,
-        },
-        "propagation": maps["propagation"],
-        "metadata": {
-            "source": rec.source, "kind": rec.kind, "fps": rec.fps, "frames": n,
-            "duration_s": rec.duration_s, "frame_shape_px": list(rec.shape),
-            "pixel_size_um": rec.pixel_size_um, "analysis_pixel_size_um": px_um,
-            "analysis_shape_px": list(source.shape), "wavelength_nm": rec.wavelength_nm,
-            "sources": {key: rec.metadata.get(key) for key in (
-                "format", "fps_source", "pixel_size_source", "wavelength_source",
-                "kind_source")},
-        },
-        "parameters": cfg,
-        "beatlab_version": __version__,
-    })
+    summary.update(
+        {
+            "n_regions": len(regions_df),
+            "quality": {
+                "snr": summary.pop("snr"),
+                "trace_noise_um": summary.pop("trace_noise_um"),
+                "drift_max_um": float(np.max(np.hypot(*drift_um[finite_shift].T)))
+                if finite_shift.any()
+                else None,
+                "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
+                "masked_fraction": cells.masked_fraction,
+                "mask_method": cells.method,
+                "clipped_fraction": float(np.mean(clipped)),
+                "template_clipped_fraction": float(tracker.template_clipped_fraction),
+                "rest_template_method": rest.method,
+                "rest_frames": int(rest.rest.sum()),
+                "template_frames": int(rest.n_frames_used),
+                "frame_noise_nm": float(np.sqrt(sigma2)) if sigma2 > 0 else None,
+                "uneven_timing": rec.uneven_timing,
+            },
+            "propagation": maps["propagation"],
+            "metadata": {
+                "source": rec.source,
+                "kind": rec.kind,
+                "fps": rec.fps,
+                "frames": n,
+                "duration_s": rec.duration_s,
+                "frame_shape_px": list(rec.shape),
+                "pixel_size_um": rec.pixel_size_um,
+                "analysis_pixel_size_um": px_um,
+                "analysis_shape_px": list(source.shape),
+                "wavelength_nm": rec.wavelength_nm,
+                "sources": {
+                    key: rec.metadata.get(key)
+                    for key in (
+                        "format",
+                        "fps_source",
+                        "pixel_size_source",
+                        "wavelength_source",
+                        "kind_source",
+                    )
+                },
+            },
+            "parameters": cfg,
+            "beatlab_version": __version__,
+        }
+    )
     if source.reconstructor is not None:
         recon = source.reconstructor
         summary["metadata"]["holography"] = {
             "carrier": [float(c) for c in np.ravel(recon.carrier)],
-            "sign": int(recon.sign)}
-    return Analysis(trace=trace, beats=beats, summary=summary, average_beat=avg, maps=maps,
-                    regions=regions_df, region_beats=region_beats_df,
-                    region_traces=pd.DataFrame(region_traces), mask=mask, template=template,
-                    region_labels=region_labels)
+            "sign": int(recon.sign),
+        }
+    return Analysis(
+        trace=trace,
+        beats=beats,
+        summary=summary,
+        average_beat=avg,
+        maps=maps,
+        regions=regions_df,
+        region_beats=region_beats_df,
+        region_traces=pd.DataFrame(region_traces),
+        mask=mask,
+        template=template,
+        region_labels=region_labels,
+    )

@@ -13,8 +13,9 @@ from beatlab.cli import main
 
 
 def _run(*args):
-    return subprocess.run([sys.executable, "-m", "beatlab", *args], capture_output=True,
-                          text=True, timeout=600)
+    return subprocess.run(
+        [sys.executable, "-m", "beatlab", *args], capture_output=True, text=True, timeout=600
+    )
 
 
 def test_help_lists_subcommands():
@@ -26,8 +27,19 @@ def test_help_lists_subcommands():
 
 def test_simulate_then_analyze(tmp_path):
     movie = tmp_path / "x.ome.tif"
-    out = _run("simulate", "--out", str(movie), "--duration-s", "6", "--size-px", "80",
-               "--rate-bpm", "70", "--seed", "3")
+    out = _run(
+        "simulate",
+        "--out",
+        str(movie),
+        "--duration-s",
+        "6",
+        "--size-px",
+        "80",
+        "--rate-bpm",
+        "70",
+        "--seed",
+        "3",
+    )
     assert out.returncode == 0, out.stderr
     truth = json.loads((tmp_path / "x.truth.json").read_text())
     with tifffile.TiffFile(movie) as tif:
@@ -39,24 +51,64 @@ def test_simulate_then_analyze(tmp_path):
     assert summary["metadata"]["fps"] == pytest.approx(30.0)
     assert "Research use only" in summary["caution"]
     beats = pd.read_csv(tmp_path / "res" / "beats.csv")
-    for col in ("beat", "onset_s", "peak_s", "end_s", "ibi_s", "time_to_peak_s",
-                "relax_50_s", "relax_90_s", "duration_50_s", "duration_90_s",
-                "displacement_um", "opd_change_nm", "contraction_velocity_um_s",
-                "relaxation_velocity_um_s", "secondary_peak", "irregular"):
+    for col in (
+        "beat",
+        "onset_s",
+        "peak_s",
+        "end_s",
+        "ibi_s",
+        "time_to_peak_s",
+        "relax_50_s",
+        "relax_90_s",
+        "duration_50_s",
+        "duration_90_s",
+        "displacement_um",
+        "opd_change_nm",
+        "contraction_velocity_um_s",
+        "relaxation_velocity_um_s",
+        "secondary_peak",
+        "irregular",
+    ):
         assert col in beats.columns
     trace = pd.read_csv(tmp_path / "res" / "trace.csv")
-    assert list(trace.columns[:4]) == ["time_s", "displacement_um", "velocity_um_s",
-                                       "opd_change_nm"]
+    assert list(trace.columns[:4]) == [
+        "time_s",
+        "displacement_um",
+        "velocity_um_s",
+        "opd_change_nm",
+    ]
     assert len(trace) == 180
-    for name in ("average_beat.csv", "regions.csv", "region_beats.csv", "region_traces.csv",
-                 "maps.npz", "trace.png", "trace.svg", "maps.png"):
+    for name in (
+        "average_beat.csv",
+        "regions.csv",
+        "region_beats.csv",
+        "region_traces.csv",
+        "maps.npz",
+        "trace.png",
+        "trace.svg",
+        "maps.png",
+    ):
         assert (tmp_path / "res" / name).exists(), name
 
 
 def test_quiescent_exits_zero(tmp_path, capsys):
     movie = tmp_path / "still.ome.tif"
-    assert main(["simulate", "--out", str(movie), "--duration-s", "4", "--size-px", "64",
-                 "--rate-bpm", "0"]) == 0
+    assert (
+        main(
+            [
+                "simulate",
+                "--out",
+                str(movie),
+                "--duration-s",
+                "4",
+                "--size-px",
+                "64",
+                "--rate-bpm",
+                "0",
+            ]
+        )
+        == 0
+    )
     assert main(["analyze", str(movie), "--out", str(tmp_path / "r"), "--no-figures"]) == 0
     summary = json.loads((tmp_path / "r" / "summary.json").read_text())
     assert summary["rhythm"] == "quiescent" and summary["beat_rate_bpm"] == 0
@@ -102,6 +154,5 @@ def test_bad_config_key(tmp_path):
     cfg.write_text("[beats]\nmin_snr_typo = 3\n")
     path = tmp_path / "z.npy"
     np.save(path, np.zeros((20, 32, 32), np.float32))
-    out = _run("analyze", str(path), "--fps", "30", "--pixel-size-um", "0.5", "--config",
-               str(cfg))
+    out = _run("analyze", str(path), "--fps", "30", "--pixel-size-um", "0.5", "--config", str(cfg))
     assert out.returncode == 2 and "beats.min_snr_typo" in out.stderr

@@ -33,8 +33,10 @@ def test_wrapped_difference_has_no_jumps():
     moved = ref + 0.1
     d = wrapped_difference(wrap_phase(moved), ref)
     assert np.allclose(d, 0.1)
-    assert np.all((wrap_phase(np.linspace(-20, 20, 101)) >= -np.pi)
-                  & (wrap_phase(np.linspace(-20, 20, 101)) < np.pi))
+    assert np.all(
+        (wrap_phase(np.linspace(-20, 20, 101)) >= -np.pi)
+        & (wrap_phase(np.linspace(-20, 20, 101)) < np.pi)
+    )
 
 
 def _smooth_phase(ny=96, nx=112):
@@ -88,8 +90,9 @@ def test_unwrap_in_time_never_jumps():
     base = _smooth_phase(48, 48)
     # the phase reaches 25 rad (many wraps); each frame differs from the first by < pi
     frames = [base + 0.25 * k for k in range(12)]
-    out = list(unwrap_in_time((wrap_phase(f) for f in frames),
-                              reference_wrapped=wrap_phase(frames[0])))
+    out = list(
+        unwrap_in_time((wrap_phase(f) for f in frames), reference_wrapped=wrap_phase(frames[0]))
+    )
     for k in range(1, 12):
         step = out[k] - out[k - 1]
         assert np.allclose(step, 0.25, atol=1e-9)

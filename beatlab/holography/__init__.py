@@ -8,6 +8,7 @@ from beatlab.holography.background import (
     phase_offset,
 )
 from beatlab.holography.demodulate import SidebandFilter, auto_radius, radius_from_na
+from beatlab.holography.files import load_reference, reconstruct_file, reconstructor_options
 from beatlab.holography.forward import render_hologram, render_reference
 from beatlab.holography.reconstruct import OffAxisReconstructor
 from beatlab.holography.refocus import (
@@ -30,10 +31,13 @@ __all__ = [
     "estimate_background_mask",
     "estimate_phase_sign",
     "fit_phase_polynomial",
+    "load_reference",
     "locate_sideband",
     "phase_offset",
     "propagate_angular_spectrum",
     "radius_from_na",
+    "reconstruct_file",
+    "reconstructor_options",
     "render_hologram",
     "render_reference",
 ]

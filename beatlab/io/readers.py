@@ -19,11 +19,30 @@ from beatlab.io.writers import OME_NAMESPACE
 __all__ = ["open_recording"]
 
 _LENGTH_TO_UM = {
-    "m": 1e6, "mm": 1e3, "cm": 1e4, "um": 1.0, "µm": 1.0, "μm": 1.0, "micron": 1.0,
-    "microns": 1.0, "micrometer": 1.0, "micrometre": 1.0, "nm": 1e-3, "\\u00B5m": 1.0,
+    "m": 1e6,
+    "mm": 1e3,
+    "cm": 1e4,
+    "um": 1.0,
+    "µm": 1.0,
+    "μm": 1.0,
+    "micron": 1.0,
+    "microns": 1.0,
+    "micrometer": 1.0,
+    "micrometre": 1.0,
+    "nm": 1e-3,
+    "\\u00B5m": 1.0,
 }
-_TIME_TO_S = {"s": 1.0, "sec": 1.0, "ms": 1e-3, "us": 1e-6, "µs": 1e-6, "μs": 1e-6,
-              "min": 60.0, "h": 3600.0, "ns": 1e-9}
+_TIME_TO_S = {
+    "s": 1.0,
+    "sec": 1.0,
+    "ms": 1e-3,
+    "us": 1e-6,
+    "µs": 1e-6,
+    "μs": 1e-6,
+    "min": 60.0,
+    "h": 3600.0,
+    "ns": 1e-9,
+}
 _IMAGE_SUFFIXES = (".tif", ".tiff", ".png")
 #: Frame intervals that differ from the median by more than this fraction count as uneven.
 _UNEVEN_TOLERANCE = 0.01
@@ -70,7 +89,7 @@ class _ArraySource:
         if owner is not None:
             try:
                 owner.close()
-            except Exception:  # noqa: BLE001 - h5py may be torn down at exit
+            except Exception:
                 pass
 
     def read(self, start: int, stop: int) -> np.ndarray:
@@ -134,10 +153,12 @@ class _FolderSource:
 
     def read(self, start: int, stop: int) -> np.ndarray:
         frames = [self._load(p) for p in self.files[start:stop]]
-        for p, f in zip(self.files[start:stop], frames):
+        for p, f in zip(self.files[start:stop], frames, strict=True):
             if f.shape != self.frame_shape:
-                raise InputError(f"{p}: frame shape {f.shape} differs from the first frame "
-                                 f"{self.frame_shape}; all frames must match")
+                raise InputError(
+                    f"{p}: frame shape {f.shape} differs from the first frame "
+                    f"{self.frame_shape}; all frames must match"
+                )
         return np.stack(frames)
 
 
@@ -194,8 +215,9 @@ def _parse_imagej(tif: tifffile.TiffFile) -> dict:
     found: dict = {}
     ij = tif.imagej_metadata or {}
     if ij.get("finterval"):
-        found["frame_interval_s"] = _time_s(ij["finterval"], ij.get("tunit", "s").replace(
-            "sec", "s"))
+        found["frame_interval_s"] = _time_s(
+            ij["finterval"], ij.get("tunit", "s").replace("sec", "s")
+        )
         found["fps_source"] = "ImageJ finterval"
     elif ij.get("fps"):
         found["frame_interval_s"] = 1.0 / float(ij["fps"])
@@ -231,7 +253,8 @@ def _timing(n_frames: int, fps_flag, found: dict, source: str):
                 warnings.warn(
                     f"{source}: frame times are uneven (intervals {dt.min() * 1e3:.2f}-"
                     f"{dt.max() * 1e3:.2f} ms); the per-frame timestamps are used",
-                    BeatlabWarning, stacklevel=3,
+                    BeatlabWarning,
+                    stacklevel=3,
                 )
             found["fps_source"] = "OME Plane DeltaT"
             return 1.0 / median, times, uneven
@@ -247,11 +270,13 @@ def _natural_key(path: Path):
 
 def _squeeze_frames(shape, axes: str, path) -> tuple[tuple[int, ...], bool]:
     """Frame stack shape (T, Y, X) from a TIFF series shape and its axes."""
-    dims = [(s, a) for s, a in zip(shape, axes) if s != 1 or a in "YX"]
+    dims = [(s, a) for s, a in zip(shape, axes, strict=True) if s != 1 or a in "YX"]
     kept = "".join(a for _, a in dims)
     if any(a in "CS" for a in kept):
-        raise InputError(f"{path}: has several channels (axes {axes}, shape {shape}); export one "
-                         "grey-level channel of phase, OPD or hologram frames")
+        raise InputError(
+            f"{path}: has several channels (axes {axes}, shape {shape}); export one "
+            "grey-level channel of phase, OPD or hologram frames"
+        )
     sizes = [s for s, _ in dims]
     if len(sizes) == 2:
         return (1, *sizes), True
@@ -304,12 +329,17 @@ def _open_hdf5(path: Path, dataset: str | None):
     f = h5py.File(path, "r")
     if not dataset:
         names: list[str] = []
-        f.visititems(lambda n, o: names.append(n) if isinstance(o, h5py.Dataset)
-                     and o.ndim in (2, 3) else None)
+        f.visititems(
+            lambda n, o: (
+                names.append(n) if isinstance(o, h5py.Dataset) and o.ndim in (2, 3) else None
+            )
+        )
         if len(names) != 1:
             f.close()
-            raise InputError(f"{path}: name the dataset as {path}:/group/dataset (found: "
-                             f"{', '.join(names) or 'no 2-D or 3-D dataset'})")
+            raise InputError(
+                f"{path}: name the dataset as {path}:/group/dataset (found: "
+                f"{', '.join(names) or 'no 2-D or 3-D dataset'})"
+            )
         dataset = names[0]
     if dataset not in f:
         f.close()
@@ -337,13 +367,21 @@ def _open_hdf5(path: Path, dataset: str | None):
 
 
 _LOOKED_FOR = {
-    "OME-TIFF": {"fps": "OME TimeIncrement and Plane DeltaT",
-                 "pixel_size_um": "OME PhysicalSizeX",
-                 "wavelength_nm": "OME MapAnnotation wavelength_nm"},
-    "ImageJ TIFF": {"fps": "ImageJ finterval", "pixel_size_um": "ImageJ resolution tags with "
-                    "unit", "wavelength_nm": "no wavelength key in ImageJ metadata"},
-    "HDF5": {"fps": "dataset attribute fps", "pixel_size_um": "dataset attribute "
-             "pixel_size_um", "wavelength_nm": "dataset attribute wavelength_nm"},
+    "OME-TIFF": {
+        "fps": "OME TimeIncrement and Plane DeltaT",
+        "pixel_size_um": "OME PhysicalSizeX",
+        "wavelength_nm": "OME MapAnnotation wavelength_nm",
+    },
+    "ImageJ TIFF": {
+        "fps": "ImageJ finterval",
+        "pixel_size_um": "ImageJ resolution tags with unit",
+        "wavelength_nm": "no wavelength key in ImageJ metadata",
+    },
+    "HDF5": {
+        "fps": "dataset attribute fps",
+        "pixel_size_um": "dataset attribute pixel_size_um",
+        "wavelength_nm": "dataset attribute wavelength_nm",
+    },
 }
 
 
@@ -405,8 +443,14 @@ def open_recording(
         raise InputError(f"{p}: no such file or folder")
     try:
         if p.is_dir():
-            files = sorted((f for f in p.iterdir() if f.suffix.lower() in _IMAGE_SUFFIXES
-                            and not f.name.startswith(".")), key=_natural_key)
+            files = sorted(
+                (
+                    f
+                    for f in p.iterdir()
+                    if f.suffix.lower() in _IMAGE_SUFFIXES and not f.name.startswith(".")
+                ),
+                key=_natural_key,
+            )
             if not files:
                 raise InputError(f"{p}: folder holds no .tif/.tiff/.png frames")
             source, found = _FolderSource(files), {"format": "image folder"}
@@ -417,8 +461,10 @@ def open_recording(
         elif p.suffix.lower() in (".tif", ".tiff", ".btf", ".tf8"):
             source, found = _open_tiff(p)
         else:
-            raise InputError(f"{p}: unsupported file type {p.suffix!r}; use OME-TIFF, TIFF, "
-                             ".npy, an HDF5 dataset or a folder of TIFF/PNG frames")
+            raise InputError(
+                f"{p}: unsupported file type {p.suffix!r}; use OME-TIFF, TIFF, "
+                ".npy, an HDF5 dataset or a folder of TIFF/PNG frames"
+            )
     except (tifffile.TiffFileError, OSError, KeyError) as exc:
         raise InputError(f"{p}: cannot be read as a frame stack ({exc})") from exc
     name = str(path)
@@ -444,9 +490,12 @@ def open_recording(
         found["wavelength_nm"] = float(wavelength_nm)
         found["wavelength_source"] = "flag --wavelength-nm"
     if found.get("pixel_size_y_um") is not None and pixel_size_um is None:
-        warnings.warn(f"{name}: pixels are not square ({found['pixel_size_um']:.4g} x "
-                      f"{found['pixel_size_y_um']:.4g} um); the x size is used", BeatlabWarning,
-                      stacklevel=2)
+        warnings.warn(
+            f"{name}: pixels are not square ({found['pixel_size_um']:.4g} x "
+            f"{found['pixel_size_y_um']:.4g} um); the x size is used",
+            BeatlabWarning,
+            stacklevel=2,
+        )
     found["uneven_timing"] = uneven
     found["looked_for"] = _LOOKED_FOR.get(found.get("format"), {})
     found.pop("plane_times_s", None)

@@ -10,7 +10,7 @@ import numpy as np
 
 from beatlab.errors import InputError, MetadataError
 
-__all__ = ["Recording", "FrameSource", "KINDS"]
+__all__ = ["KINDS", "FrameSource", "Recording"]
 
 #: What the pixel values are: OPD in nm, phase in radians, raw camera counts.
 KINDS = ("opd", "phase", "hologram")
@@ -30,7 +30,7 @@ class FrameSource(Protocol):
     dtype: np.dtype
 
     def read(self, start: int, stop: int) -> np.ndarray:
-        """Return frames ``start:stop`` as an array (n, Y, X) (a view of a memory map if possible)."""
+        """Frames ``start:stop`` as an array (n, Y, X), a memory-map view where possible."""
         ...
 
 
@@ -116,8 +116,9 @@ class Recording:
             raise IndexError(f"frame {index} out of range for {n} frames")
         return np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32)
 
-    def chunks(self, size: int = 64, *, start: int = 0, stop: int | None = None
-               ) -> Iterator[tuple[int, np.ndarray]]:
+    def chunks(
+        self, size: int = 64, *, start: int = 0, stop: int | None = None
+    ) -> Iterator[tuple[int, np.ndarray]]:
         """Yield ``(first_index, frames)`` with float32 arrays of at most ``size`` frames."""
         if size < 1:
             raise ValueError(f"chunk size must be >= 1, got {size}")
@@ -126,8 +127,10 @@ class Recording:
             j = min(i + size, stop)
             block = np.asarray(self.frames.read(i, j), dtype=np.float32)
             if block.shape[0] != j - i:
-                raise InputError(f"{self.source}: could read only {block.shape[0]} of frames "
-                                 f"{i}-{j - 1}; the file may be truncated")
+                raise InputError(
+                    f"{self.source}: could read only {block.shape[0]} of frames "
+                    f"{i}-{j - 1}; the file may be truncated"
+                )
             yield i, block
 
     def close(self) -> None:

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import tifffile
 
-__all__ = ["write_ome_tiff", "atomic_path", "write_json"]
+__all__ = ["atomic_path", "write_json", "write_ome_tiff"]
 
 #: Namespace of the OME MapAnnotation that carries beatlab's own metadata.
 OME_NAMESPACE = "beatlab/recording"

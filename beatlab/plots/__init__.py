@@ -11,8 +11,14 @@ from beatlab.io.writers import atomic_path
 __all__ = ["save_figure"]
 
 
-def save_figure(draw: Callable, path: str | os.PathLike, *, size=(7.0, 3.0),
-                whole_figure: bool = False, formats: tuple[str, ...] = ("png", "svg")) -> Path:
+def save_figure(
+    draw: Callable,
+    path: str | os.PathLike,
+    *,
+    size=(7.0, 3.0),
+    whole_figure: bool = False,
+    formats: tuple[str, ...] = ("png", "svg"),
+) -> Path:
     """Draw into a new figure and save it atomically as PNG (and SVG beside it).
 
     Parameters

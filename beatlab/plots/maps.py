@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_displacement_map", "plot_onset_map", "plot_maps"]
+__all__ = ["plot_displacement_map", "plot_maps", "plot_onset_map"]
 
 
 def _extent(maps, shape_px, pixel_size_um):
@@ -42,8 +42,9 @@ def plot_onset_map(maps: dict, *, ax=None, extent=None):
     return ax
 
 
-def plot_maps(maps: dict, template_nm: np.ndarray, mask: np.ndarray, *, fig=None,
-              pixel_size_um: float = 1.0):
+def plot_maps(
+    maps: dict, template_nm: np.ndarray, mask: np.ndarray, *, fig=None, pixel_size_um: float = 1.0
+):
     """Three panels: template with mask outline, displacement map, onset map."""
     if fig is None:
         import matplotlib.pyplot as plt
@@ -52,8 +53,9 @@ def plot_maps(maps: dict, template_nm: np.ndarray, mask: np.ndarray, *, fig=None
     axes = fig.subplots(1, 3)
     extent = _extent(maps, template_nm.shape, pixel_size_um)
     im = axes[0].imshow(template_nm, cmap="gray", extent=extent)
-    axes[0].contour(mask, levels=[0.5], colors="#E69F00", linewidths=0.6, extent=extent,
-                    origin="upper")
+    axes[0].contour(
+        mask, levels=[0.5], colors="#E69F00", linewidths=0.6, extent=extent, origin="upper"
+    )
     fig.colorbar(im, ax=axes[0], label="OPD (nm)", shrink=0.8)
     axes[0].set_title("rest template and mask")
     plot_displacement_map(maps, ax=axes[1], extent=extent)

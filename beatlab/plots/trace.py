@@ -41,17 +41,29 @@ def plot_trace(trace, beats, *, ax=None, column: str = "displacement_um"):
         return times[np.isfinite(times)], np.interp(times[np.isfinite(times)], t, y)
 
     if len(beats):
-        for col, marker, color, name in (("onset_s", "^", PALETTE["green"], "onset (10 %)"),
-                                         ("peak_s", "o", PALETTE["vermillion"], "peak"),
-                                         ("end_s", "v", PALETTE["purple"], "end (10 %)")):
+        for col, marker, color, name in (
+            ("onset_s", "^", PALETTE["green"], "onset (10 %)"),
+            ("peak_s", "o", PALETTE["vermillion"], "peak"),
+            ("end_s", "v", PALETTE["purple"], "end (10 %)"),
+        ):
             x, yy = at(beats[col])
             ax.plot(x, yy, marker, ms=4, color=color, ls="none", label=name)
         if "secondary_peak" in beats and beats["secondary_peak"].astype(bool).any():
             x, yy = at(beats.loc[beats["secondary_peak"].astype(bool), "peak_s"])
-            ax.plot(x, yy * 1.08, "*", ms=7, color=PALETTE["orange"], ls="none",
-                    label="secondary peak (EAD-like)")
-    unit = {"displacement_um": "displacement (µm)", "velocity_um_s": "velocity (µm/s)",
-            "opd_change_nm": "OPD change (nm)"}.get(column, column)
+            ax.plot(
+                x,
+                yy * 1.08,
+                "*",
+                ms=7,
+                color=PALETTE["orange"],
+                ls="none",
+                label="secondary peak (EAD-like)",
+            )
+    unit = {
+        "displacement_um": "displacement (µm)",
+        "velocity_um_s": "velocity (µm/s)",
+        "opd_change_nm": "OPD change (nm)",
+    }.get(column, column)
     ax.set_xlabel("time (s)")
     ax.set_ylabel(unit)
     ax.set_xlim(t[0], t[-1])

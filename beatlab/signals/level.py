@@ -32,8 +32,14 @@ class PlaneLeveller:
     not pull the plane.
     """
 
-    def __init__(self, template: np.ndarray, *, usable: np.ndarray | None = None,
-                 tilt: bool = True, step: int = 2):
+    def __init__(
+        self,
+        template: np.ndarray,
+        *,
+        usable: np.ndarray | None = None,
+        tilt: bool = True,
+        step: int = 2,
+    ):
         template = np.asarray(template, dtype=np.float32)
         ny, nx = template.shape
         ok = np.isfinite(template) if usable is None else (usable & np.isfinite(template))

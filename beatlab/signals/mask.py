@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
-__all__ = ["CellMask", "make_cell_mask", "MASK_METHODS"]
+__all__ = ["MASK_METHODS", "CellMask", "make_cell_mask"]
 
 MASK_METHODS = ("auto", "threshold", "confluent", "all")
 
@@ -107,8 +107,8 @@ def make_cell_mask(
     -----
     A field counts as confluent when no cells stand out, or the would-be background is as
     textured as the cells (median high-pass magnitude above half that of the cells, or above
-    5 noise SDs). The background is the low mode of the lightly smoothed template (sigma 1 px), found by
-    iterated 3-SD clipping; cells exceed it by ``threshold_sigma`` SDs; the result is
+    5 noise SDs). The background is the low mode of the lightly smoothed template (sigma
+    1 px), found by iterated 3-SD clipping; cells exceed it by ``threshold_sigma`` SDs; the result is
     closed, hole-filled and opened (3 x 3), and small objects are removed. NaN pixels are
     never in the mask.
     """
@@ -118,7 +118,7 @@ def make_cell_mask(
     finite = np.isfinite(template)
     inner = np.zeros_like(finite)
     b = int(border_px)
-    inner[b: template.shape[0] - b or None, b: template.shape[1] - b or None] = True
+    inner[b : template.shape[0] - b or None, b : template.shape[1] - b or None] = True
     empty = np.zeros_like(finite)
     if method == "all":
         labels = finite.astype(int)
@@ -147,13 +147,15 @@ def make_cell_mask(
         # high-pass of white noise has a median magnitude of about 0.6 SD
         textured = textured or np.median(texture[background]) > 5.0 * noise_nm
     confluent = method == "confluent" or (
-        method == "auto" and (cell_share > confluent_fraction or textured
-                              or background.sum() < 0.05 * finite.sum()))
+        method == "auto"
+        and (cell_share > confluent_fraction or textured or background.sum() < 0.05 * finite.sum())
+    )
     if confluent:
         mask = finite & inner
         labels = mask.astype(int)
         return CellMask(mask, empty, labels, "confluent", np.nan, np.nan, float(mask.mean()))
     mask = cells & inner
     labels, _ = ndimage.label(mask)
-    return CellMask(mask, background & inner, labels, "threshold", level, spread,
-                    float(mask.mean()))
+    return CellMask(
+        mask, background & inner, labels, "threshold", level, spread, float(mask.mean())
+    )

@@ -18,7 +18,7 @@ from scipy import ndimage
 from beatlab.errors import InputError
 from beatlab.signals.level import PlaneLeveller
 
-__all__ = ["RestTemplate", "estimate_rest_template", "shift_image", "block_mean"]
+__all__ = ["RestTemplate", "block_mean", "estimate_rest_template", "shift_image"]
 
 logger = logging.getLogger(__name__)
 
@@ -82,8 +82,9 @@ def shift_image(image: np.ndarray, shift_px: np.ndarray) -> np.ndarray:
     out = np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(work), (shift_px[1], shift_px[0])))
     out = out.real.astype(np.float32)
     if bad.any():
-        moved = ndimage.shift(bad.astype(np.float32), (shift_px[1], shift_px[0]), order=1,
-                              mode="nearest")
+        moved = ndimage.shift(
+            bad.astype(np.float32), (shift_px[1], shift_px[0]), order=1, mode="nearest"
+        )
         out[moved > 0.01] = np.nan
     return out
 
@@ -147,8 +148,9 @@ def estimate_rest_template(
     ny, nx = source.shape
     factor = max(1, min(ny, nx) // max(int(lowres_px), 8))
     lows = []
-    with tqdm(total=source.n_frames, desc="rest pass", unit="frame", disable=not progress,
-              leave=False) as bar:
+    with tqdm(
+        total=source.n_frames, desc="rest pass", unit="frame", disable=not progress, leave=False
+    ) as bar:
         for _, block in source.chunks():
             for frame in block:
                 lows.append(_filled(block_mean(frame, factor)))
@@ -169,8 +171,9 @@ def estimate_rest_template(
             shifts[t] = _phase_shift(ref, low[t], window)
             moved = low[t]
             if np.hypot(*shifts[t]) > 0.02:
-                moved = ndimage.shift(low[t], (-shifts[t][1], -shifts[t][0]), order=3,
-                                      mode="nearest")
+                moved = ndimage.shift(
+                    low[t], (-shifts[t][1], -shifts[t][0]), order=3, mode="nearest"
+                )
             moved = leveller.level(moved)
             aligned[t] = moved
             deviation[t] = np.sqrt(np.mean((moved - ref)[2:-2, 2:-2] ** 2))
@@ -181,19 +184,29 @@ def estimate_rest_template(
     diffs = np.sqrt(np.mean((aligned[1:] - aligned[:-1])[:, 2:-2, 2:-2] ** 2, axis=(1, 2)))
     floor = float(np.median(diffs) / np.sqrt(2)) if n > 1 else 0.0
     rest_level = float(np.median(deviation[rest]))
-    method = ("rest-frames" if rest_level <= _REST_FLOOR_FACTOR * max(floor, 1e-12)
-              else "least-deviating-frames")
+    method = (
+        "rest-frames"
+        if rest_level <= _REST_FLOOR_FACTOR * max(floor, 1e-12)
+        else "least-deviating-frames"
+    )
     if method != "rest-frames":
-        logger.info("no frames at the noise floor (%.3g nm vs %.3g nm): using the least "
-                    "deviating frames as the rest state", rest_level, floor)
+        logger.info(
+            "no frames at the noise floor (%.3g nm vs %.3g nm): using the least "
+            "deviating frames as the rest state",
+            rest_level,
+            floor,
+        )
     # full-resolution template from the chosen frames
     idx = np.flatnonzero(rest)
     if idx.size > max_rest_frames:
         idx = idx[np.round(np.linspace(0, idx.size - 1, max_rest_frames)).astype(int)]
     full_shifts = shifts * factor
     first = source.frame(int(idx[0]))
-    base = shift_image(first, -full_shifts[idx[0]]) if np.hypot(*full_shifts[idx[0]]) > 0.02 \
+    base = (
+        shift_image(first, -full_shifts[idx[0]])
+        if np.hypot(*full_shifts[idx[0]]) > 0.02
         else first
+    )
     leveller = PlaneLeveller(base, tilt=level_tilt)
     frames = []
     for i in idx:
@@ -220,6 +233,9 @@ def estimate_rest_template(
         noise_var=noise_var.astype(np.float32),
         n_frames_used=int(k),
         method=method,
-        info={"deviation_floor_nm": floor, "rest_deviation_nm": rest_level,
-              "block_factor": factor},
+        info={
+            "deviation_floor_nm": floor,
+            "rest_deviation_nm": rest_level,
+            "block_factor": factor,
+        },
     )

@@ -5,11 +5,16 @@ from __future__ import annotations
 import numpy as np
 from scipy.signal import savgol_filter
 
-__all__ = ["velocity_trace", "opd_change_trace"]
+__all__ = ["opd_change_trace", "velocity_trace"]
 
 
-def velocity_trace(displacement_um: np.ndarray, times_s: np.ndarray, *, window_ms: float = 60.0,
-                   polyorder: int = 2) -> np.ndarray:
+def velocity_trace(
+    displacement_um: np.ndarray,
+    times_s: np.ndarray,
+    *,
+    window_ms: float = 60.0,
+    polyorder: int = 2,
+) -> np.ndarray:
     """Signed time derivative of the displacement trace (um/s).
 
     Parameters
@@ -44,7 +49,7 @@ def velocity_trace(displacement_um: np.ndarray, times_s: np.ndarray, *, window_m
     even = np.allclose(dt, step, rtol=1e-3)
     if window_ms <= 0:
         return np.gradient(d, t)
-    n = int(round(window_ms / 1e3 / step))
+    n = round(window_ms / 1e3 / step)
     n = max(n, polyorder + 1)
     if n % 2 == 0:
         n += 1
@@ -59,8 +64,7 @@ def velocity_trace(displacement_um: np.ndarray, times_s: np.ndarray, *, window_m
     return np.interp(t, grid, v)
 
 
-def opd_change_trace(mean_square_nm2: np.ndarray, noise_var_nm2: np.ndarray | float
-                     ) -> np.ndarray:
+def opd_change_trace(mean_square_nm2: np.ndarray, noise_var_nm2: np.ndarray | float) -> np.ndarray:
     """RMS OPD change with the frame noise removed in quadrature, floored at 0 (nm).
 
     Parameters

@@ -18,10 +18,20 @@ def stack():
 def test_ome_tiff_written_by_tifffile(tmp_path, stack):
     # Done-when check: TimeIncrement 0.02 s and PhysicalSizeX 0.5 um -> fps 50 and 0.5 um
     path = tmp_path / "a.ome.tif"
-    tifffile.imwrite(path, stack, ome=True, metadata={
-        "axes": "TYX", "TimeIncrement": 0.02, "TimeIncrementUnit": "s",
-        "PhysicalSizeX": 0.5, "PhysicalSizeXUnit": "µm",
-        "PhysicalSizeY": 0.5, "PhysicalSizeYUnit": "µm"})
+    tifffile.imwrite(
+        path,
+        stack,
+        ome=True,
+        metadata={
+            "axes": "TYX",
+            "TimeIncrement": 0.02,
+            "TimeIncrementUnit": "s",
+            "PhysicalSizeX": 0.5,
+            "PhysicalSizeXUnit": "µm",
+            "PhysicalSizeY": 0.5,
+            "PhysicalSizeYUnit": "µm",
+        },
+    )
     rec = open_recording(path)
     assert rec.fps == pytest.approx(50.0)
     assert rec.pixel_size_um == pytest.approx(0.5)
@@ -33,21 +43,41 @@ def test_ome_tiff_written_by_tifffile(tmp_path, stack):
 
 def test_ome_units_are_converted(tmp_path, stack):
     path = tmp_path / "b.ome.tif"
-    tifffile.imwrite(path, stack, ome=True, metadata={
-        "axes": "TYX", "TimeIncrement": 20.0, "TimeIncrementUnit": "ms",
-        "PhysicalSizeX": 500.0, "PhysicalSizeXUnit": "nm",
-        "PhysicalSizeY": 500.0, "PhysicalSizeYUnit": "nm"})
+    tifffile.imwrite(
+        path,
+        stack,
+        ome=True,
+        metadata={
+            "axes": "TYX",
+            "TimeIncrement": 20.0,
+            "TimeIncrementUnit": "ms",
+            "PhysicalSizeX": 500.0,
+            "PhysicalSizeXUnit": "nm",
+            "PhysicalSizeY": 500.0,
+            "PhysicalSizeYUnit": "nm",
+        },
+    )
     rec = open_recording(path)
     assert rec.fps == pytest.approx(50.0)
     assert rec.pixel_size_um == pytest.approx(0.5)
 
 
 def test_ome_round_trip_with_beatlab_annotations(tmp_path, stack):
-    path = write_ome_tiff(tmp_path / "c.ome.tif", stack, fps=30.0, pixel_size_um=0.25,
-                          kind="phase", wavelength_nm=632.8)
+    path = write_ome_tiff(
+        tmp_path / "c.ome.tif",
+        stack,
+        fps=30.0,
+        pixel_size_um=0.25,
+        kind="phase",
+        wavelength_nm=632.8,
+    )
     rec = open_recording(path)
-    assert (rec.kind, rec.fps, rec.pixel_size_um, rec.wavelength_nm) == \
-        ("phase", pytest.approx(30.0), pytest.approx(0.25), pytest.approx(632.8))
+    assert (rec.kind, rec.fps, rec.pixel_size_um, rec.wavelength_nm) == (
+        "phase",
+        pytest.approx(30.0),
+        pytest.approx(0.25),
+        pytest.approx(632.8),
+    )
     blocks = list(rec.chunks(5))
     assert [i for i, _ in blocks] == [0, 5, 10]
     np.testing.assert_array_equal(np.concatenate([b for _, b in blocks]), stack)
@@ -56,8 +86,9 @@ def test_ome_round_trip_with_beatlab_annotations(tmp_path, stack):
 def test_uneven_plane_times_are_kept_and_reported(tmp_path, stack):
     times = np.cumsum(np.r_[0, np.full(11, 0.02)])
     times[6:] += 0.015  # one dropped-ish frame
-    path = write_ome_tiff(tmp_path / "d.ome.tif", stack, fps=50.0, pixel_size_um=0.5,
-                          times_s=times)
+    path = write_ome_tiff(
+        tmp_path / "d.ome.tif", stack, fps=50.0, pixel_size_um=0.5, times_s=times
+    )
     with pytest.warns(BeatlabWarning, match="uneven"):
         rec = open_recording(path)
     np.testing.assert_allclose(rec.times_s, times)
@@ -68,9 +99,13 @@ def test_uneven_plane_times_are_kept_and_reported(tmp_path, stack):
 def test_imagej_metadata(tmp_path, stack):
     # ImageJ: finterval and resolution tags with unit; `spacing` is the z-step, not the pixel
     path = tmp_path / "ij.tif"
-    tifffile.imwrite(path, stack, imagej=True, resolution=(2.0, 2.0),
-                     metadata={"unit": "um", "finterval": 0.02, "axes": "TYX",
-                               "spacing": 3.0})
+    tifffile.imwrite(
+        path,
+        stack,
+        imagej=True,
+        resolution=(2.0, 2.0),
+        metadata={"unit": "um", "finterval": 0.02, "axes": "TYX", "spacing": 3.0},
+    )
     rec = open_recording(path)
     assert rec.fps == pytest.approx(50.0)
     assert rec.pixel_size_um == pytest.approx(0.5)
@@ -169,8 +204,7 @@ def test_invalid_flag_values(tmp_path, stack):
 
 def test_streamed_write_and_atomicity(tmp_path, stack):
     path = tmp_path / "s.ome.tif"
-    write_ome_tiff(path, iter(stack), shape=stack.shape, dtype=np.float32, fps=10,
-                   pixel_size_um=1)
+    write_ome_tiff(path, iter(stack), shape=stack.shape, dtype=np.float32, fps=10, pixel_size_um=1)
     np.testing.assert_array_equal(tifffile.imread(path), stack)
 
     def broken():
@@ -178,8 +212,9 @@ def test_streamed_write_and_atomicity(tmp_path, stack):
         raise RuntimeError("disk gone")
 
     with pytest.raises(RuntimeError):
-        write_ome_tiff(path, broken(), shape=stack.shape, dtype=np.float32, fps=10,
-                       pixel_size_um=1)
+        write_ome_tiff(
+            path, broken(), shape=stack.shape, dtype=np.float32, fps=10, pixel_size_um=1
+        )
     # the earlier file is intact and no partial file is left behind
     np.testing.assert_array_equal(tifffile.imread(path), stack)
     assert not [p for p in tmp_path.iterdir() if p.name.endswith(".part")]

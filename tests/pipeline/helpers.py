@@ -6,16 +6,31 @@ import pandas as pd
 from beatlab.io import Recording
 from beatlab.io.readers import _ArraySource
 
-TIMING = ["onset_s", "peak_s", "end_s", "time_to_peak_s", "relax_50_s", "relax_90_s",
-          "duration_50_s", "duration_90_s"]
+TIMING = [
+    "onset_s",
+    "peak_s",
+    "end_s",
+    "time_to_peak_s",
+    "relax_50_s",
+    "relax_90_s",
+    "duration_50_s",
+    "duration_90_s",
+]
 
 
 def as_recording(sim, frames=None, kind=None):
     """The simulated recording in memory (the file round trip is tested elsewhere)."""
     frames = sim.frames if frames is None else frames
-    return Recording(source="simulated", kind=kind or sim.kind, frames=_ArraySource(frames),
-                     fps=sim.fps, times_s=np.asarray(sim.times_s), pixel_size_um=sim.pixel_size_um,
-                     wavelength_nm=sim.wavelength_nm, metadata={})
+    return Recording(
+        source="simulated",
+        kind=kind or sim.kind,
+        frames=_ArraySource(frames),
+        fps=sim.fps,
+        times_s=np.asarray(sim.times_s),
+        pixel_size_um=sim.pixel_size_um,
+        wavelength_nm=sim.wavelength_nm,
+        metadata={},
+    )
 
 
 def run(sim, config=None, **kwargs):
@@ -39,7 +54,6 @@ def match_beats(found: pd.DataFrame, truth: list[dict]) -> pd.DataFrame:
             for col in TIMING + ["displacement_um", "ibi_s"]:
                 tv = b.get(col)
                 fv = found.iloc[k][col]
-                row[f"{col}_err"] = (fv - tv) if (tv is not None and np.isfinite(fv)) \
-                    else np.nan
+                row[f"{col}_err"] = (fv - tv) if (tv is not None and np.isfinite(fv)) else np.nan
             rows.append(row)
     return pd.DataFrame(rows)

@@ -14,11 +14,21 @@ from tests.pipeline.helpers import TIMING, match_beats, run
 NOISY = dict(noise_nm=2.0, correlated_noise_nm=1.0, jitter_nm=3.0, drift_nm=20.0)
 
 
-@pytest.mark.parametrize(("layout", "strain"), [("clusters", 0.02), ("clusters", 0.05),
-                                                ("confluent", 0.02), ("confluent", 0.05)])
+@pytest.mark.parametrize(
+    ("layout", "strain"),
+    [("clusters", 0.02), ("clusters", 0.05), ("confluent", 0.02), ("confluent", 0.05)],
+)
 def test_count_and_rate_under_noise(layout, strain):
-    sim = simulate_recording(duration_s=8, fps=30, shape_px=(96, 96), layout=layout,
-                             rate_bpm=72, strain=strain, rng=11, **NOISY)
+    sim = simulate_recording(
+        duration_s=8,
+        fps=30,
+        shape_px=(96, 96),
+        layout=layout,
+        rate_bpm=72,
+        strain=strain,
+        rng=11,
+        **NOISY,
+    )
     res = run(sim)
     truth = sim.truth["summary"]
     assert res.summary["beat_count"] == truth["beat_count"]
@@ -26,11 +36,11 @@ def test_count_and_rate_under_noise(layout, strain):
     assert res.summary["rhythm"] == "regular"
 
 
-@pytest.mark.parametrize(("fps", "rate_bpm"), [(15, 60), (15, 120), (30, 60), (50, 60),
-                                               (100, 60)])
+@pytest.mark.parametrize(("fps", "rate_bpm"), [(15, 60), (15, 120), (30, 60), (50, 60), (100, 60)])
 def test_timing_within_half_a_frame(fps, rate_bpm):
-    sim = simulate_recording(duration_s=8, fps=fps, shape_px=(96, 96), rate_bpm=rate_bpm,
-                             noise_nm=1.0, rng=5)
+    sim = simulate_recording(
+        duration_s=8, fps=fps, shape_px=(96, 96), rate_bpm=rate_bpm, noise_nm=1.0, rng=5
+    )
     res = run(sim)
     assert res.summary["beat_count"] == sim.truth["summary"]["beat_count"]
     err = match_beats(res.beats, sim.truth["beats"])
@@ -64,8 +74,9 @@ def test_displacement_velocity_and_strain_scaling():
 
 
 def test_irregular_rhythm_indices():
-    sim = simulate_recording(duration_s=40, fps=30, shape_px=(64, 64), rate_bpm=60,
-                             ibi_cv=0.25, noise_nm=1.0, rng=8)
+    sim = simulate_recording(
+        duration_s=40, fps=30, shape_px=(64, 64), rate_bpm=60, ibi_cv=0.25, noise_nm=1.0, rng=8
+    )
     res = run(sim)
     truth = sim.truth["summary"]
     assert res.summary["beat_count"] == truth["beat_count"]
@@ -75,20 +86,36 @@ def test_irregular_rhythm_indices():
 
 
 def test_ead_flagged_exactly_and_overshoot_not():
-    sim = simulate_recording(duration_s=8, fps=50, shape_px=(96, 96), rate_bpm=45,
-                             relax_s=0.35, ead_beats=[1, 4], overshoot=0.08, noise_nm=1.0,
-                             rng=4)
+    sim = simulate_recording(
+        duration_s=8,
+        fps=50,
+        shape_px=(96, 96),
+        rate_bpm=45,
+        relax_s=0.35,
+        ead_beats=[1, 4],
+        overshoot=0.08,
+        noise_nm=1.0,
+        rng=4,
+    )
     res = run(sim)
     truth = [b["secondary_peak"] for b in sim.truth["beats"]]
     assert res.summary["beat_count"] == len(truth)
     assert res.beats["secondary_peak"].astype(bool).tolist() == truth
 
 
-@pytest.mark.parametrize(("pattern", "low", "high"), [((1.0, 0.55), 0.4, None),
-                                                      ((1.0,), None, 0.1)])
+@pytest.mark.parametrize(
+    ("pattern", "low", "high"), [((1.0, 0.55), 0.4, None), ((1.0,), None, 0.1)]
+)
 def test_alternans(pattern, low, high):
-    sim = simulate_recording(duration_s=12, fps=30, shape_px=(80, 80), rate_bpm=60,
-                             amplitude_pattern=pattern, noise_nm=1.0, rng=6)
+    sim = simulate_recording(
+        duration_s=12,
+        fps=30,
+        shape_px=(80, 80),
+        rate_bpm=60,
+        amplitude_pattern=pattern,
+        noise_nm=1.0,
+        rng=6,
+    )
     res = run(sim)
     assert res.summary["beat_count"] == sim.truth["summary"]["beat_count"]
     index = res.summary["alternans_index"]
@@ -99,8 +126,16 @@ def test_alternans(pattern, low, high):
 
 
 def test_no_beating_is_quiescent():
-    sim = simulate_recording(duration_s=8, fps=30, shape_px=(96, 96), rate_bpm=0,
-                             noise_nm=1.5, drift_nm=20, stage_drift_um=(0.6, -0.4), rng=2)
+    sim = simulate_recording(
+        duration_s=8,
+        fps=30,
+        shape_px=(96, 96),
+        rate_bpm=0,
+        noise_nm=1.5,
+        drift_nm=20,
+        stage_drift_um=(0.6, -0.4),
+        rng=2,
+    )
     res = run(sim)
     assert res.summary["beat_count"] == 0
     assert res.summary["beat_rate_bpm"] == 0
@@ -108,21 +143,34 @@ def test_no_beating_is_quiescent():
 
 
 def test_wrapped_phase_matches_opd_twin():
-    common = dict(duration_s=6, fps=30, shape_px=(96, 96), rate_bpm=60, noise_nm=1.0,
-                  layout="confluent", rng=9)
+    common = dict(
+        duration_s=6,
+        fps=30,
+        shape_px=(96, 96),
+        rate_bpm=60,
+        noise_nm=1.0,
+        layout="confluent",
+        rng=9,
+    )
     opd = simulate_recording(kind="opd", **common)
     phase = simulate_recording(kind="wrapped_phase", **common)
     assert np.nanmax(opd.frames) > 632.8  # crosses wrap boundaries
     a, b = run(opd), run(phase)
     assert a.summary["beat_count"] == b.summary["beat_count"] > 0
     np.testing.assert_allclose(a.beats["peak_s"], b.beats["peak_s"], atol=0.5 / 30)
-    np.testing.assert_allclose(a.beats["displacement_um"], b.beats["displacement_um"],
-                               rtol=0.02)
+    np.testing.assert_allclose(a.beats["displacement_um"], b.beats["displacement_um"], rtol=0.02)
 
 
 def test_two_independent_clusters_give_two_regions():
-    sim = simulate_recording(duration_s=15, fps=30, shape_px=(128, 128), n_clusters=2,
-                             cluster_rates_bpm=(40, 65), noise_nm=1.0, rng=12)
+    sim = simulate_recording(
+        duration_s=15,
+        fps=30,
+        shape_px=(128, 128),
+        n_clusters=2,
+        cluster_rates_bpm=(40, 65),
+        noise_nm=1.0,
+        rng=12,
+    )
     res = run(sim)
     assert res.summary["n_regions"] == 2
     rates = sorted(res.regions["beat_rate_bpm"].tolist())

@@ -25,7 +25,7 @@ def test_robust_to_a_moving_patch():
     frame = template + 3.0 + rng.normal(0, 0.5, template.shape)
     frame[10:30, 10:30] += 80.0  # a contracting cluster: not part of the offset
     out = PlaneLeveller(template).level(frame)
-    resid = (out - template)
+    resid = out - template
     resid[10:30, 10:30] = 0
     assert abs(np.median(resid)) < 0.1
 

@@ -13,8 +13,16 @@ def _rest(sim):
 
 
 def test_rest_frames_are_relaxed_not_merely_still():
-    sim = simulate_recording(duration_s=6, fps=30, shape_px=(96, 96), rate_bpm=60,
-                             rise_s=0.15, relax_s=0.3, noise_nm=1.0, rng=1)
+    sim = simulate_recording(
+        duration_s=6,
+        fps=30,
+        shape_px=(96, 96),
+        rate_bpm=60,
+        rise_s=0.15,
+        relax_s=0.3,
+        noise_nm=1.0,
+        rng=1,
+    )
     rest = _rest(sim)
     act = np.atleast_2d(sim.activation)[0]
     # the peak of a contraction is still too, but it is not rest
@@ -26,8 +34,15 @@ def test_rest_frames_are_relaxed_not_merely_still():
 
 
 def test_template_with_stage_drift_stays_sharp():
-    sim = simulate_recording(duration_s=6, fps=30, shape_px=(96, 96), rate_bpm=0,
-                             noise_nm=1.0, stage_drift_um=(1.0, 0.5), rng=2)
+    sim = simulate_recording(
+        duration_s=6,
+        fps=30,
+        shape_px=(96, 96),
+        rate_bpm=0,
+        noise_nm=1.0,
+        stage_drift_um=(1.0, 0.5),
+        rng=2,
+    )
     rest = _rest(sim)
     # measured (dx, dy) shifts follow the drift: (y, x) = (1.0, 0.5) um at 0.5 um pixels
     drift_px = rest.shifts_px[-1] - rest.shifts_px[0]
@@ -38,10 +53,12 @@ def test_template_with_stage_drift_stays_sharp():
 
 
 def test_mask_sparse_vs_confluent():
-    sparse = simulate_recording(duration_s=2, fps=15, shape_px=(96, 96), rate_bpm=0,
-                                layout="clusters", rng=3)
-    conf = simulate_recording(duration_s=2, fps=15, shape_px=(96, 96), rate_bpm=0,
-                              layout="confluent", rng=3)
+    sparse = simulate_recording(
+        duration_s=2, fps=15, shape_px=(96, 96), rate_bpm=0, layout="clusters", rng=3
+    )
+    conf = simulate_recording(
+        duration_s=2, fps=15, shape_px=(96, 96), rate_bpm=0, layout="confluent", rng=3
+    )
     r1, r2 = _rest(sparse), _rest(conf)
     noise = [float(np.sqrt(np.nanmedian(r.noise_var) / r.n_frames_used)) for r in (r1, r2)]
     m1 = make_cell_mask(r1.template, pixel_size_um=sparse.pixel_size_um, noise_nm=noise[0])
