@@ -137,6 +137,45 @@ def _beats_and_summary(
     return beats, summary, peaks
 
 
+def _rigid_reference(template, cells, rigid: str, noise_nm: float | None):
+    """Pixels whose median flow is the rigid whole-field shift, and what they are.
+
+    A cell-free background tracks stage drift only where it has texture (debris, fixed
+    structure); a flat background gives the optical flow nothing to hold on to, and its
+    median flow is noise. Then the median over the cells is used: contraction pulls about a
+    centre, so its median vector is close to zero, while drift moves every cell alike.
+    """
+    from scipy import ndimage
+
+    if rigid in ("auto", "background") and cells.background.sum() > 0.05 * cells.mask.size:
+        filled = np.where(np.isfinite(template), template, np.nanmedian(template))
+        texture = np.abs(filled - ndimage.gaussian_filter(filled, 2.0))
+        floor = 5.0 * (noise_nm if noise_nm else 0.0)
+        textured = cells.background & (texture > max(floor, 1e-6))
+        if textured.sum() >= max(64, 0.02 * cells.mask.size):
+            return textured, "textured background"
+        if rigid == "background":
+            logger.info("background has no texture to track drift; using the cell median")
+    if rigid == "median":
+        return None, "field median"
+    return cells.mask, "cell median"
+
+
+def _flow_scale(template, flow_cfg: dict, noise_var) -> tuple[float, float]:
+    """One 8-bit mapping per recording: template percentiles widened by 4 frame-noise SDs.
+
+    The template is an average and far smoother than a single frame; without the margin, the
+    noise of every frame would clip wherever the percentile falls on a flat background.
+    """
+    finite = template[np.isfinite(template)]
+    lo, hi = np.percentile(finite, [flow_cfg["percentile_low"], flow_cfg["percentile_high"]])
+    sd = float(np.sqrt(np.nanmedian(noise_var))) if np.isfinite(noise_var).any() else 0.0
+    lo, hi = float(lo) - 4 * sd, float(hi) + 4 * sd
+    if not hi > lo:
+        lo, hi = lo - 1.0, hi + 1.0
+    return lo, hi
+
+
 def _load_regions(path, shape) -> np.ndarray:
     rec = open_recording(path, fps=1.0)
     labels = np.asarray(rec.frames.read(0, 1)[0])
@@ -280,9 +319,7 @@ def analyze(
     n_labels = int(labels.max())
     flow_cfg = cfg["flow"]
     rigid = flow_cfg["rigid"]
-    background = None
-    if rigid in ("auto", "background") and cells.background.sum() > 0.05 * mask.size:
-        background = cells.background
+    rigid_pixels, rigid_source = _rigid_reference(template, cells, rigid, template_noise)
     tracker = FlowTracker(
         template,
         mask,
@@ -291,8 +328,8 @@ def analyze(
         preset=flow_cfg["preset"],
         refine_iterations=flow_cfg["refine_iterations"],
         window_px=flow_cfg["window_px"],
-        percentiles=(flow_cfg["percentile_low"], flow_cfg["percentile_high"]),
-        background=background if rigid != "none" else None,
+        scale=_flow_scale(template, flow_cfg, rest.noise_var),
+        background=rigid_pixels,
     )
     leveller = PlaneLeveller(template, tilt=t_cfg["level_tilt"])
     tile_px = max(4, round(cfg["maps"]["tile_um"] / px_um))
@@ -312,16 +349,17 @@ def analyze(
     label_tr = np.full((n_labels, n), np.nan)
     label_ms = np.full((n_labels, n), np.nan)
 
-    def one_frame(frame: np.ndarray):
+    def one_frame(frame: np.ndarray, drift: np.ndarray | None):
         lev = leveller.level(frame)
         meas = tracker.measure(lev)
-        shift = np.asarray(meas.rigid_shift_px, dtype=float)
-        flow = meas.flow_px if rigid != "none" else meas.flow_px + shift.astype(np.float32)
-        mag = np.hypot(flow[..., 0], flow[..., 1]) * px_um
-        value = meas.displacement_um
+        estimate = np.asarray(meas.rigid_shift_px, dtype=float)
+        shift = estimate if drift is None else np.asarray(drift, dtype=float)
         if rigid == "none":
-            inside = mag[mask]
-            value = float(np.nanmean(inside)) if np.isfinite(inside).any() else np.nan
+            shift = np.zeros(2)
+        flow = meas.flow_px + (estimate - shift).astype(np.float32)
+        mag = np.hypot(flow[..., 0], flow[..., 1]) * px_um
+        inside = mag[mask]
+        value = float(np.nanmean(inside)) if np.isfinite(inside).any() else np.nan
         aligned = shift_image(lev, -shift) if np.hypot(*shift) > 0.02 else lev
         sq = (aligned - template) ** 2
         tmean = tile_means(np.where(mask, mag, np.nan), tiles, n_tiles)
@@ -337,7 +375,7 @@ def analyze(
         with np.errstate(invalid="ignore", divide="ignore"):
             return (
                 value,
-                shift,
+                estimate if rigid == "none" else shift,
                 float(np.nanmean(msq)) if np.isfinite(msq).any() else np.nan,
                 meas.clipped_fraction,
                 tmean,
@@ -345,24 +383,41 @@ def analyze(
                 (lsq / lcnt2)[1:],
             )
 
+    def store(i, res):
+        (disp[i], shifts[i], ms[i], clipped[i], tile_tr[i], label_tr[:, i], label_ms[:, i]) = res
+
+    # Without a textured background, drift is measured where contraction is zero: at the
+    # resting frames (median flow over the cells), and interpolated in time between them.
+    rest_idx = np.flatnonzero(rest.rest)
+    interpolate = (rigid_source == "cell median" and rest.method == "rest-frames"
+                   and rest_idx.size >= 2)
+    if interpolate:
+        rigid_source = "cell median at rest frames, interpolated"
     workers = workers or min(4, os.cpu_count() or 1)
+    chunk = cfg["input"]["chunk_frames"]
     with (
         ThreadPoolExecutor(max_workers=workers) as pool,
         tqdm(total=n, desc="analysing", unit="frame", disable=not progress, leave=False) as bar,
     ):
+        done = np.zeros(n, dtype=bool)
+        if interpolate:
+            for j in range(0, rest_idx.size, chunk):
+                batch = rest_idx[j : j + chunk]
+                frames = [source.frame(int(i)) for i in batch]
+                for i, res in zip(batch, pool.map(one_frame, frames, [None] * len(batch)),
+                                  strict=True):
+                    store(i, res)
+                bar.update(len(batch))
+            done[rest_idx] = True
+            drift_px = np.stack([np.interp(times, times[rest_idx], shifts[rest_idx, c])
+                                 for c in (0, 1)], axis=1)
         for i0, block in source.chunks():
-            for k, res in enumerate(pool.map(one_frame, block)):
-                i = i0 + k
-                (
-                    disp[i],
-                    shifts[i],
-                    ms[i],
-                    clipped[i],
-                    tile_tr[i],
-                    label_tr[:, i],
-                    label_ms[:, i],
-                ) = res
-            bar.update(len(block))
+            todo = [k for k in range(len(block)) if not done[i0 + k]]
+            drifts = [drift_px[i0 + k] if interpolate else None for k in todo]
+            for k, res in zip(todo, pool.map(one_frame, [block[k] for k in todo], drifts),
+                              strict=True):
+                store(i0 + k, res)
+            bar.update(len(todo))
     if not np.isfinite(disp).any():
         raise InputError(f"{rec.source}: every frame is NaN inside the cell mask")
 
@@ -372,7 +427,7 @@ def analyze(
     noise_map = np.where(np.isfinite(rest.noise_var), rest.noise_var, np.nan)
     sigma2 = float(np.nanmean(noise_map[mask])) if k > 1 else 0.0
     used = np.zeros(n, dtype=bool)
-    used[rest.rest] = True
+    used[rest.template_frames] = True
     factor = np.where(used, 1 - 1 / k, 1 + 1 / k) if k > 1 else np.ones(n)
     opd_change = opd_change_trace(ms, sigma2 * factor)
     v_cfg = cfg["velocity"]
@@ -476,6 +531,7 @@ def analyze(
                 "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
                 "masked_fraction": cells.masked_fraction,
                 "mask_method": cells.method,
+            "drift_reference": rigid_source if rigid != "none" else "none",
                 "clipped_fraction": float(np.mean(clipped)),
                 "template_clipped_fraction": float(tracker.template_clipped_fraction),
                 "rest_template_method": rest.method,

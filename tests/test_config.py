@@ -24,9 +24,9 @@ def test_every_parameter_documented():
 
 def test_merge_overrides_without_mutating():
     base = default_config()
-    merged = merge_config(base, {"beats": {"min_snr": 8}})
-    assert merged["beats"]["min_snr"] == 8.0
-    assert base["beats"]["min_snr"] == 6.0
+    merged = merge_config(base, {"beats": {"min_snr": 9}})
+    assert merged["beats"]["min_snr"] == 9.0
+    assert base["beats"]["min_snr"] == 8.0
 
 
 @pytest.mark.parametrize(

@@ -16,18 +16,22 @@ from beatlab.errors import InputError
 
 __all__ = ["detect_beats"]
 
+_RELATIVE_RIPPLE = 1e-9
+_MAX_GATE_INFLATION = 2.0
+
 
 def detect_beats(
     trace,
     times_s,
     *,
     max_rate_bpm=240.0,
-    min_snr=6.0,
+    min_snr=8.0,
     min_relative_prominence=0.2,
     min_beat_snr=5.0,
     min_rise_fraction=0.5,
     smooth_s=0.05,
-    rise_window_s=0.5,
+    rise_window_s=0.3,
+    fall_window_s=1.0,
     floor_window_s=2.0,
     reference_quantile=0.9,
     noise_method="robust",
@@ -47,8 +51,10 @@ def detect_beats(
     min_snr : float
         The recording beats only if its typical beat prominence (the `reference_quantile` of
         the candidate prominences above this gate) reaches `min_snr` noise SDs of the
-        unsmoothed trace, i.e. a beat amplitude-to-noise ratio of about `min_snr`.
-        Otherwise the result is empty (pure noise, drift, a flat trace).
+        detection-smoothed trace (white noise; or wander on the time scale of
+        `rise_window_s` when larger, up to twice the white value). Otherwise the result is
+        empty (pure noise, drift, a flat trace). In 20 s of white noise the largest noise
+        prominence is ~4 such SDs (99th percentile ~6), hence the default 8.
     min_relative_prominence : float
         Each beat needs a prominence of at least this fraction of the typical beat prominence
         (alternans beats of half the amplitude pass at the default 0.2).
@@ -63,8 +69,12 @@ def detect_beats(
         Bandwidth (SD, seconds) of the Gaussian smoothing used for detection only; 0 turns it
         off. The returned index is the maximum of the unsmoothed trace near the smoothed peak.
     rise_window_s : float
-        The prominence of a peak is measured within this many seconds on each side (scipy's
-        ``wlen``), so slow drift never looks like a beat. Longer than any beat's rise.
+        The rise of a peak is measured from the lowest point within this many seconds before
+        it (scipy's ``wlen``), so slow drift, which changes little over that time, never looks
+        like a beat. About the longest rise from rest to peak.
+    fall_window_s : float
+        The fall of a peak is measured to the lowest point within this many seconds after it
+        (longer: a slow or two-step relaxation still counts in full).
     floor_window_s : float
         The resting floor under a candidate is the lowest smoothed value within this many
         seconds before it (>= `rise_window_s`).
@@ -88,11 +98,12 @@ def detect_beats(
     Notes
     -----
     Candidates are the local maxima of the smoothed trace (``scipy.signal.find_peaks``) with
-    their topographic prominence (``scipy.signal.peak_prominences``) inside a window of
-    ``2 rise_window_s``: the smaller of the rise from the lowest point before the peak and the
-    fall to the lowest point after it, each searched until a higher sample. A peak whose side
-    search reaches the recording start or end without meeting a higher sample is judged by its
-    other side alone, so a beat cut by the recording edge is still found. The noise gate
+    their topographic prominence (``scipy.signal.peak_prominences``): the smaller of the rise
+    from the lowest point within `rise_window_s` before the peak and the fall to the lowest
+    point within `fall_window_s` after it, each searched until a higher sample. A peak within
+    `rise_window_s` of the recording start or end, with no higher sample between it and that
+    edge, is judged by its other side alone, over `rise_window_s`, so a beat cut by the
+    recording edge is found while drift at the edge is not. The noise gate
     follows the usual peak-picking practice of a prominence threshold in noise SDs; the
     amplitude-relative threshold makes the count independent of the trace's unit.
 
@@ -113,6 +124,7 @@ def detect_beats(
     min_rise_fraction = check_non_negative(min_rise_fraction, "min_rise_fraction")
     smooth_s = check_non_negative(smooth_s, "smooth_s")
     rise_window_s = check_positive(rise_window_s, "rise_window_s")
+    fall_window_s = check_positive(fall_window_s, "fall_window_s")
     floor_window_s = check_positive(floor_window_s, "floor_window_s")
     reference_quantile = check_fraction(reference_quantile, "reference_quantile")
     if floor_window_s < rise_window_s:
@@ -133,21 +145,45 @@ def detect_beats(
     dt = float(np.median(np.diff(times)))
     smooth = smooth_gaussian(values, times, bandwidth_s=smooth_s)
     sigma_smooth = sigma * noise_gain(dt, bandwidth_s=smooth_s, kind="gaussian")
+    # the gate also faces coloured noise (wander on the time scale of a rise)
+    # (capped: dense beats inflate that estimate too, and must still pass)
+    slow = _slow_noise(smooth, int(np.ceil(rise_window_s / dt)))
+    sigma_gate = max(sigma_smooth, min(slow, _MAX_GATE_INFLATION * sigma_smooth))
 
-    candidates, _ = find_peaks(smooth)
+    interior, _ = find_peaks(smooth)
+    # smoothing can push a peak one sample from the edge onto the edge sample itself
+    edges = [i for i, j in ((0, 1), (values.size - 1, values.size - 2)) if smooth[i] > smooth[j]]
+    candidates = np.union1d(interior, np.asarray(edges, dtype=np.intp)).astype(np.intp)
     if candidates.size == 0:
         return empty
-    half = int(np.ceil(rise_window_s / dt))
-    _, left_base, right_base = peak_prominences(smooth, candidates, wlen=2 * half + 1)
-    rise = smooth[candidates] - smooth[left_base]
-    fall = smooth[candidates] - smooth[right_base]
-    left_cut, right_cut = _edge_cut(smooth, candidates, half)
+    half_rise = int(np.ceil(rise_window_s / dt))
+    half_fall = int(np.ceil(fall_window_s / dt))
+    rise = np.zeros(candidates.size)
+    fall = np.zeros(candidates.size)
+    fall_short = np.zeros(candidates.size)  # within rise_window_s: judges a cut first beat
+    inner = np.isin(candidates, interior)
+    if np.any(inner):
+        peaks_in = candidates[inner]
+        _, left_base, short_base = peak_prominences(smooth, peaks_in, wlen=2 * half_rise + 1)
+        _, _, right_base = peak_prominences(smooth, peaks_in, wlen=2 * half_fall + 1)
+        rise[inner] = smooth[peaks_in] - smooth[left_base]
+        fall[inner] = smooth[peaks_in] - smooth[right_base]
+        fall_short[inner] = smooth[peaks_in] - smooth[short_base]
+    for k in np.flatnonzero(~inner):
+        if candidates[k] == 0:
+            fall[k] = _edge_drop(smooth, 0, half_fall)
+            fall_short[k] = _edge_drop(smooth, 0, half_rise)
+        else:
+            rise[k] = _edge_drop(smooth, int(candidates[k]), half_rise)
+    left_cut, right_cut = _edge_cut(smooth, candidates, half_rise)
     strength = np.minimum(rise, fall)
     strength = np.where(right_cut & ~left_cut, rise, strength)
-    strength = np.where(left_cut & ~right_cut, fall, strength)
-    strength = np.where(left_cut & right_cut, np.maximum(rise, fall), strength)
+    strength = np.where(left_cut & ~right_cut, fall_short, strength)
+    strength = np.where(left_cut & right_cut, np.maximum(rise, fall_short), strength)
 
-    gated = strength[strength >= max(min_snr * sigma_smooth, np.finfo(float).tiny)]
+    # floating-point ripple of a flat trace is no beat, whatever the noise estimate says
+    ripple = _RELATIVE_RIPPLE * max(float(np.max(np.abs(values))), np.finfo(float).tiny)
+    gated = strength[strength >= max(min_snr * sigma_gate, ripple)]
     if gated.size == 0:
         return empty
     reference = float(np.quantile(gated, reference_quantile))
@@ -163,7 +199,7 @@ def detect_beats(
 
 
 def _edge_cut(smooth, candidates, half):
-    """Whether each candidate's left / right base search ran into the recording edge."""
+    """Whether a candidate within `half` samples of an edge has no higher sample up to it."""
     n = smooth.size
     running_max_left = np.maximum.accumulate(smooth)
     running_max_right = np.maximum.accumulate(smooth[::-1])[::-1]
@@ -176,6 +212,31 @@ def _edge_cut(smooth, candidates, half):
         if c + half >= n - 1:
             right_cut[k] = c == n - 1 or running_max_right[c + 1] <= height
     return left_cut, right_cut
+
+
+def _slow_noise(smooth, lag):
+    """Noise SD of the smoothed trace at the rise time scale, for coloured noise and wander.
+
+    The smaller of the robust SD of its changes over `lag` samples (/ sqrt 2) and of its
+    resting-floor spread: white noise gives the same value as the white-noise gain; a random
+    walk or wander on the scale of a beat's rise gives more, so it cannot pass as beats.
+    """
+    if smooth.size <= lag + 2:
+        return 0.0
+    lagged = smooth[lag:] - smooth[:-lag]
+    spread = float(np.median(np.abs(lagged - np.median(lagged)))) * 1.4826 / np.sqrt(2.0)
+    return float(min(spread, NOISE_METHODS["floor_quantile"](smooth)))
+
+
+def _edge_drop(smooth, edge, half):
+    """Drop from an edge sample to the lowest point inward, searched until a higher sample."""
+    step = 1 if edge == 0 else -1
+    stop = edge + step * (half + 1)
+    inward = smooth[edge + step : stop : step] if stop >= 0 else smooth[edge + step :: step]
+    higher = np.flatnonzero(inward > smooth[edge])
+    if higher.size:
+        inward = inward[: higher[0]]
+    return float(smooth[edge] - inward.min()) if inward.size else 0.0
 
 
 def _trailing_minimum(smooth, times, candidates, window_s):
@@ -194,8 +255,11 @@ def _enforce_interval(peaks, strength, times, min_interval_s):
 
 
 def _snap_to_raw_maximum(values, peaks, radius):
+    """Highest raw sample near each peak; a peak on the first or last sample is unobserved."""
     snapped = []
     for c in peaks:
         lo, hi = max(0, c - radius), min(values.size, c + radius + 1)
-        snapped.append(lo + int(np.argmax(values[lo:hi])))
+        best = lo + int(np.argmax(values[lo:hi]))
+        if 0 < best < values.size - 1:
+            snapped.append(best)
     return np.unique(np.asarray(snapped, dtype=np.intp))

@@ -61,7 +61,7 @@ def measure_beats(
     opd_change=None,
     secondary_prominence=0.1,
     secondary_min_level=0.2,
-    secondary_snr=3.0,
+    secondary_snr=2.0,
     irregular_tolerance=0.25,
     smooth_s=0.02,
     hysteresis_sd=2.5,
@@ -85,8 +85,8 @@ def measure_beats(
         Increasing sample indices of the beat peaks, e.g. from :func:`detect_beats`. Each is
         moved to the highest sample of the smoothed trace within `peak_search_s`.
     velocity : array_like, shape (T,), optional
-        ``velocity_um_s`` (µm/s), signed. None uses the slope of the local quadratic fit of
-        the trace.
+        ``velocity_um_s`` (µm/s), signed. None uses ``numpy.gradient`` of the smoothed trace
+        over the times.
     opd_change : array_like, shape (T,), optional
         ``opd_change_nm`` (nm). None leaves ``opd_change_nm`` NaN.
     secondary_prominence : float
@@ -160,7 +160,10 @@ def measure_beats(
     Cleveland 1979, J Am Stat Assoc 74:829). Secondary peaks use the topographic prominence
     of ``scipy.signal.peak_prominences`` within the stretch from the peak to the end.
     Velocities are the largest positive and most negative velocity samples from the onset
-    (or the lowest point) to the end (or the next onset).
+    (or the lowest point) to the end (or the next onset). When the lowest point before the
+    first peak is the first frame (its upstroke began before the recording), the first beat
+    takes the baseline of the second; its onset is then NaN if the first frame is already
+    above the 10 % level.
     """
     values = as_trace(trace)
     times = as_times(times_s, values.size)
@@ -188,8 +191,12 @@ def measure_beats(
     if idx.size == 0:
         return _empty_frame()
 
-    smooth, slope = smooth_local_quadratic(values, times, bandwidth_s=smooth_s)
-    velocity_used = slope if velocity_in is None else velocity_in
+    smooth, _ = smooth_local_quadratic(values, times, bandwidth_s=smooth_s)
+    velocity_used = (
+        (np.gradient(smooth, times) if smooth.size > 1 else np.zeros_like(smooth))
+        if velocity_in is None
+        else velocity_in
+    )
     dt = float(np.median(np.diff(times))) if times.size > 1 else 1.0
     if noise_sd is None:
         noise_sd = estimate_noise(values, method=noise_method) if values.size >= 3 else 0.0
@@ -214,6 +221,10 @@ def measure_beats(
         locator=locator,
         rest_band=rest_band,
     )
+    if lowest[0] == 0 and idx.size > 1:
+        # the trace only rises from the first frame to the first peak: that upstroke began
+        # before the recording, so its resting level is taken from the next beat
+        baseline[0] = baseline[1]
     amplitude = peak_val - baseline
     band = hysteresis_sd * sigma
     n_beats = idx.size

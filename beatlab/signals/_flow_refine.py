@@ -2,6 +2,13 @@
 
 Private helper of :mod:`beatlab.signals.flow`; the public entry point is
 :func:`beatlab.signals.flow.refine_flow`.
+
+The local model is ``moving(p + u) = (1 + g) reference(p) + b`` with the displacement ``u``
+and a local brightness gain ``g`` and offset ``b`` solved together in each Gaussian window.
+The gain matters for quantitative phase: a contracting cell thickens (its dry mass is
+conserved, so the OPD grows as the area shrinks), and a brightness-constant fit reads that
+thickening as outward motion, under-reading the contraction by 15-25 % at 4 % strain
+(measured on the simulator, see ``tests/signals/test_flow.py``).
 """
 
 from __future__ import annotations
@@ -14,21 +21,21 @@ from scipy import ndimage as ndi
 
 __all__ = ["ReferenceBasis", "gaussian_window", "prepare_reference", "refine_with_basis"]
 
-# Tikhonov damping of each Gauss-Newton increment, relative to the mean trace of the windowed
-# structure tensor over the image: pixels without texture keep the initial (pyramid) estimate
-# instead of amplifying noise, pixels with texture are barely affected.
+# Tikhonov damping of each Gauss-Newton increment, relative to the mean of each diagonal term
+# of the windowed normal matrix over the image: pixels without texture keep the initial
+# (pyramid) estimate instead of amplifying noise, pixels with texture are barely affected.
 _DAMPING = 1e-3
+
+#: brightness models: the basis functions beside the two gradients
+BRIGHTNESS_MODELS = ("affine", "constant")
 
 
 class ReferenceBasis(NamedTuple):
     """Everything about the reference image that does not change from frame to frame."""
 
     reference: np.ndarray  # (Y, X) float32
-    grad_x: np.ndarray  # (Y, X) float32, d reference / dx
-    grad_y: np.ndarray  # (Y, X) float32, d reference / dy
-    inv_xx: np.ndarray  # (Y, X) float32, inverse of the damped windowed structure tensor
-    inv_xy: np.ndarray
-    inv_yy: np.ndarray
+    basis: tuple  # the k basis images (gradients, then brightness terms), (Y, X) float32
+    inverse: np.ndarray  # (Y, X, k, k) float32 inverse of the damped windowed normal matrix
     window_px: float
     textured: bool  # False when the reference has no gradient anywhere (constant image)
 
@@ -41,37 +48,54 @@ def gaussian_window(image: np.ndarray, sigma_px: float) -> np.ndarray:
     )
 
 
-def prepare_reference(reference: np.ndarray, *, window_px: float) -> ReferenceBasis:
-    """Gradients and the inverted windowed structure tensor of a float reference image."""
+def prepare_reference(
+    reference: np.ndarray, *, window_px: float, brightness: str = "affine"
+) -> ReferenceBasis:
+    """Basis images and the inverted windowed normal matrix of a float reference image."""
+    if brightness not in BRIGHTNESS_MODELS:
+        raise ValueError(
+            f"brightness must be one of {', '.join(BRIGHTNESS_MODELS)}, got {brightness!r}"
+        )
     ref = np.ascontiguousarray(reference, dtype=np.float32)
     grad_y, grad_x = np.gradient(ref)
-    grad_x = np.ascontiguousarray(grad_x, dtype=np.float32)
-    grad_y = np.ascontiguousarray(grad_y, dtype=np.float32)
-    jxx = gaussian_window(grad_x * grad_x, window_px)
-    jxy = gaussian_window(grad_x * grad_y, window_px)
-    jyy = gaussian_window(grad_y * grad_y, window_px)
-    damping = _DAMPING * float(np.mean(jxx + jyy))
-    textured = bool(damping > 0.0 and np.isfinite(damping))
+    basis = [np.ascontiguousarray(grad_x, np.float32), np.ascontiguousarray(grad_y, np.float32)]
+    if brightness == "affine":
+        centred = ref - np.float32(ref.mean())
+        scale = np.float32(max(float(np.std(centred)), 1e-6))
+        basis += [-(centred / scale), -np.ones_like(ref)]
+    k = len(basis)
+    normal = np.empty((*ref.shape, k, k), dtype=np.float64)
+    for i in range(k):
+        for j in range(i, k):
+            s = gaussian_window(basis[i] * basis[j], window_px)
+            normal[..., i, j] = s
+            normal[..., j, i] = s
+    diag = np.array([normal[..., i, i].mean() for i in range(k)])
+    grad_energy = float(diag[0] + diag[1])
+    textured = bool(grad_energy > 0.0 and np.isfinite(grad_energy))
     if textured:
-        jxx = jxx + np.float32(damping)
-        jyy = jyy + np.float32(damping)
-        det = jxx * jyy - jxy * jxy
-        inv_xx, inv_xy, inv_yy = jyy / det, -jxy / det, jxx / det
+        damping = _DAMPING * np.where(diag > 0, diag, grad_energy)
+        normal[..., np.arange(k), np.arange(k)] += damping
+        inverse = np.linalg.inv(normal).astype(np.float32)
     else:
-        inv_xx = inv_xy = inv_yy = np.zeros_like(ref)
-    return ReferenceBasis(ref, grad_x, grad_y, inv_xx, inv_xy, inv_yy, float(window_px), textured)
+        inverse = np.zeros_like(normal, dtype=np.float32)
+    return ReferenceBasis(ref, tuple(basis), inverse, float(window_px), textured)
 
 
 def refine_with_basis(
     basis: ReferenceBasis, moving: np.ndarray, flow: np.ndarray, *, iterations: int
 ) -> np.ndarray:
-    """Gauss-Newton steps on ``moving(p + flow(p)) = reference(p)``; returns a new flow."""
+    """Gauss-Newton steps on ``moving(p + flow(p)) = (1 + g) reference(p) + b``.
+
+    Returns a new flow; the brightness terms are re-estimated at every step.
+    """
     out = np.array(flow, dtype=np.float32, copy=True)
     if iterations == 0 or not basis.textured:
         return out
     coeffs = ndi.spline_filter(np.asarray(moving, dtype=np.float64), order=3, mode="nearest")
     ny, nx = basis.reference.shape
     rows, cols = np.mgrid[0:ny, 0:nx].astype(np.float32)
+    inv = basis.inverse
     for _ in range(iterations):
         warped = ndi.map_coordinates(
             coeffs,
@@ -82,8 +106,9 @@ def refine_with_basis(
             output=np.float32,
         )
         error = warped - basis.reference
-        bx = gaussian_window(basis.grad_x * error, basis.window_px)
-        by = gaussian_window(basis.grad_y * error, basis.window_px)
-        out[..., 0] -= basis.inv_xx * bx + basis.inv_xy * by
-        out[..., 1] -= basis.inv_xy * bx + basis.inv_yy * by
+        rhs = [gaussian_window(b * error, basis.window_px) for b in basis.basis]
+        # only the two displacement components of the solution are needed
+        for comp in (0, 1):
+            step = sum(inv[..., comp, j] * rhs[j] for j in range(len(rhs)))
+            out[..., comp] -= step
     return out

@@ -108,9 +108,9 @@ def make_cell_mask(
     A field counts as confluent when no cells stand out, or the would-be background is as
     textured as the cells (median high-pass magnitude above half that of the cells, or above
     5 noise SDs). The background is the low mode of the lightly smoothed template (sigma
-    1 px), found by iterated 3-SD clipping; cells exceed it by ``threshold_sigma`` SDs; the result is
-    closed, hole-filled and opened (3 x 3), and small objects are removed. NaN pixels are
-    never in the mask.
+    1 px), found by iterated 3-SD clipping; cells exceed it by ``threshold_sigma`` SDs;
+    the result is closed, hole-filled and opened (3 x 3), and small objects are removed. NaN
+    pixels are never in the mask.
     """
     if method not in MASK_METHODS:
         raise ValueError(f"mask method must be one of {', '.join(MASK_METHODS)}, got {method!r}")

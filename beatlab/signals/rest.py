@@ -44,6 +44,8 @@ class RestTemplate:
         Per-pixel variance (nm^2) of a single resting frame about the true rest state.
     n_frames_used : int
         Number of frames averaged.
+    template_frames : ndarray of int
+        Indices of the frames averaged into the template.
     method : str
         ``'rest-frames'``, or ``'least-deviating-frames'`` when no frames came close to the
         noise floor (fast or fibrillation-like beating: no true rest).
@@ -55,6 +57,7 @@ class RestTemplate:
     shifts_px: np.ndarray
     noise_var: np.ndarray
     n_frames_used: int
+    template_frames: np.ndarray
     method: str
     info: dict = field(default_factory=dict)
 
@@ -87,6 +90,59 @@ def shift_image(image: np.ndarray, shift_px: np.ndarray) -> np.ndarray:
         )
         out[moved > 0.01] = np.nan
     return out
+
+
+def relaxed_score(frames: np.ndarray, *, iterations: int = 30) -> np.ndarray:
+    """Position of every frame along the main activity axis, 0 at the relaxed end.
+
+    Parameters
+    ----------
+    frames : ndarray (T, P)
+        Aligned, levelled frames (flattened pixels).
+    iterations : int
+        Power iterations for the first principal component.
+
+    Returns
+    -------
+    ndarray (T,)
+        The first principal-component score, shifted and oriented so the relaxed end is 0.
+
+    Notes
+    -----
+    For small motions a frame is close to ``rest - a(t) u . grad(rest)``, so the first
+    principal component of the frames follows the activation ``a(t)`` up to sign. The
+    relaxed end is the end where frames pile up (cells rest longer than they stay at peak);
+    when neither end clearly does (fast beating, no true rest), it is the end the trace leaves
+    fast: contraction is faster than relaxation (time to peak < relaxation time, a fact of
+    cardiomyocyte mechanics; common practice).
+    """
+    x = np.asarray(frames, dtype=np.float64)
+    x = x - x.mean(axis=0)
+    n = x.shape[0]
+    if n < 3 or not np.any(x):
+        return np.zeros(n)
+    v = np.random.default_rng(0).standard_normal(x.shape[1])
+    for _ in range(iterations):
+        v = x.T @ (x @ v)
+        norm = np.linalg.norm(v)
+        if norm == 0:
+            return np.zeros(n)
+        v /= norm
+    s = x @ v
+    span = s.max() - s.min()
+    if span <= 0:
+        return np.zeros(n)
+    low = np.mean(s < s.min() + 0.15 * span)
+    high = np.mean(s > s.max() - 0.15 * span)
+    if high > 1.5 * low:
+        s = -s
+    elif not low > 1.5 * high:
+        d = np.diff(s)
+        sd = d.std()
+        skew = float(np.mean(((d - d.mean()) / sd) ** 3)) if sd > 0 else 0.0
+        if skew < 0:  # the fast direction must be the contraction, i.e. increasing s
+            s = -s
+    return s - s.min()
 
 
 def _filled(frame: np.ndarray) -> np.ndarray:
@@ -138,8 +194,10 @@ def estimate_rest_template(
     Notes
     -----
     Deviation of frame t: RMS over the block-averaged field of the levelled, drift-aligned
-    difference to the current rest estimate. The estimate starts as the temporal median and
-    is refined twice as the mean of the least-deviating ``rest_quantile`` of frames. Rigid
+    difference to the current rest estimate. The first estimate is the mean of the frames at
+    the relaxed end of the main activity axis (:func:`relaxed_score`), not the temporal
+    median, which is a partly contracted state when beats fill most of the time; it is
+    refined twice as the mean of the least-deviating ``rest_quantile`` of frames. Rigid
     shifts are measured by phase correlation (Kuglin & Hines 1975) on the block-averaged
     frames, so stage drift does not read as deviation nor blur the template.
     """
@@ -164,7 +222,7 @@ def estimate_rest_template(
     shifts = np.zeros((n, 2))
     deviation = np.zeros(n)
     rest = np.ones(n, dtype=bool)
-    for _ in range(3):
+    for iteration in range(3):
         leveller = PlaneLeveller(ref, tilt=level_tilt, step=1)
         aligned = np.empty_like(low)
         for t in range(n):
@@ -177,8 +235,13 @@ def estimate_rest_template(
             moved = leveller.level(moved)
             aligned[t] = moved
             deviation[t] = np.sqrt(np.mean((moved - ref)[2:-2, 2:-2] ** 2))
-        cut = np.quantile(deviation, rest_quantile)
-        rest = deviation <= cut
+        if iteration == 0:
+            # the temporal median is a partly contracted state when beats fill most of the
+            # time; start from the relaxed end of the main activity axis instead
+            score = relaxed_score(aligned[:, 2:-2, 2:-2].reshape(n, -1))
+            rest = score <= np.quantile(score, rest_quantile)
+        else:
+            rest = deviation <= np.quantile(deviation, rest_quantile)
         ref = aligned[rest].mean(axis=0)
     # noise floor of the deviation: consecutive resting frames differ by noise only
     diffs = np.sqrt(np.mean((aligned[1:] - aligned[:-1])[:, 2:-2, 2:-2] ** 2, axis=(1, 2)))
@@ -232,6 +295,7 @@ def estimate_rest_template(
         shifts_px=full_shifts,
         noise_var=noise_var.astype(np.float32),
         n_frames_used=int(k),
+        template_frames=idx,
         method=method,
         info={
             "deviation_floor_nm": floor,

@@ -356,6 +356,7 @@ def simulate_recording(
             schedules[c].onsets_s,
             schedules[c].ead,
             trace=trace_of(region_w[c]),
+            edge_s=1.0 / p["fps"],
         )
         ys, xs = np.nonzero(sel)
         regions.append(
@@ -373,7 +374,12 @@ def simulate_recording(
         )
     if shared:
         beats = beat_truth(
-            t_dense, d_dense, schedules[0].onsets_s, schedules[0].ead, trace=trace_of(w_mask)
+            t_dense,
+            d_dense,
+            schedules[0].onsets_s,
+            schedules[0].ead,
+            trace=trace_of(w_mask),
+            edge_s=1.0 / p["fps"],
         )
         summary = summarize_truth(beats, t_end_s=t_end)
     else:

@@ -107,7 +107,7 @@ def _diff(a, b):
     return None if a is None or b is None else float(a - b)
 
 
-def beat_truth(t, d, onsets_s, ead, *, trace=None):
+def beat_truth(t, d, onsets_s, ead, *, trace=None, edge_s=0.0):
     """Per-beat landmarks of a dense noise-free trace.
 
     Parameters
@@ -125,6 +125,10 @@ def beat_truth(t, d, onsets_s, ead, *, trace=None):
         ``trace(t_s) -> um``, the continuous trace that ``d`` samples; refines peaks and level
         crossings beyond the grid (continuous maximum, root of ``trace - level``). Without it,
         the parabola vertex and linear interpolation of the definitions are used on the grid.
+    edge_s : float
+        Beats whose peak lies within this time of the first or last frame are left out: with
+        ``edge_s`` one frame interval, such a peak is not a maximum of the sampled trace (the
+        recording cuts the beat), so no analysis can resolve it.
 
     Returns
     -------
@@ -145,6 +149,8 @@ def beat_truth(t, d, onsets_s, ead, *, trace=None):
         ip = i0 + int(np.argmax(d[i0:i1]))
         # a peak at the window edge is truncated by the recording end or not a maximum
         if ip <= i0 or ip >= i1 - 1 or ip >= n - 1 or d[ip] <= 0:
+            continue
+        if t[ip] < t[0] + edge_s or t[ip] > t[-1] - edge_s:
             continue
         found.append((k, ip))
 
