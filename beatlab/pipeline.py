@@ -150,7 +150,9 @@ def _rigid_reference(template, cells, rigid: str, noise_nm: float | None):
     if rigid in ("auto", "background") and cells.background.sum() > 0.05 * cells.mask.size:
         filled = np.where(np.isfinite(template), template, np.nanmedian(template))
         texture = np.abs(filled - ndimage.gaussian_filter(filled, 2.0))
-        floor = 5.0 * (noise_nm if noise_nm else 0.0)
+        # structures as clear as the cells' own texture; faint background patterns are as
+        # likely fixed optical artefacts (which do not move with the stage) as debris
+        floor = max(5.0 * (noise_nm or 0.0), 0.25 * float(np.median(texture[cells.mask])))
         textured = cells.background & (texture > max(floor, 1e-6))
         if textured.sum() >= max(64, 0.02 * cells.mask.size):
             return textured, "textured background"

@@ -72,6 +72,7 @@ def measure_beats(
     peak_search_s=0.05,
     noise_method="robust",
     noise_sd=None,
+    interpolation="cubic",
 ):
     """Measure the landmarks and features of every beat (one row per beat).
 
@@ -105,6 +106,16 @@ def measure_beats(
         Bandwidth (s) of the local quadratic smoothing applied before measuring; it keeps
         landmarks of clean traces unbiased (exact for cubics) and reduces noise at high frame
         rates. 0 measures the raw samples.
+    interpolation : {'cubic', 'linear'}
+        ``'linear'`` applies the definitions literally on the samples: crossings linearly
+        interpolated between frames, the peak at the vertex of the parabola through three
+        samples. ``'cubic'`` (default) first upsamples the (smoothed) trace with a
+        not-a-knot cubic spline through every sample onto a grid of about 4 ms (at most
+        16 points per frame), then applies the same rules there. At low frame rates the
+        literal rules are biased on the curved foot and on asymmetric peaks: for a
+        150 ms half-cosine rise at 15 fps the linear 10 % onset is 12 ms early and the
+        parabola peak 18 ms late on average, the spline 3 ms and 11 ms (noise-free,
+        all sampling phases); at 50 fps and above the two agree within 1 ms.
     hysteresis_sd : float
         Half-width of the noise band of the crossing search, in noise SDs of the smoothed
         trace (see :func:`beatlab.beats.crossings.level_crossing`); 0 is the plain rule.
@@ -205,8 +216,14 @@ def measure_beats(
     )
 
     idx = _refine_peaks(smooth, idx, round(peak_search_s / dt))
-    peak_s, peak_val = _parabola_vertices(smooth, times, idx)
     locator, _ = smooth_local_quadratic(values, times, bandwidth_s=baseline_smooth_s)
+    coarse_idx = idx
+    factor = _upsampling_factor(times, interpolation)
+    tl, smooth, locator, velocity_used, idx = _upsample(
+        times, factor, smooth, locator, velocity_used, idx
+    )
+    idx = _refine_peaks(smooth, idx, factor)
+    peak_s, peak_val = _parabola_vertices(smooth, tl, idx)
     rest_band = (
         check_non_negative(baseline_rest_sd, "baseline_rest_sd")
         * check_non_negative(noise_sd, "noise_sd")
@@ -214,10 +231,10 @@ def measure_beats(
     )
     baseline, lowest = estimate_beat_baselines(
         smooth,
-        times,
+        tl,
         idx,
         window_s=baseline_window_s,
-        min_samples=baseline_min_samples,
+        min_samples=baseline_min_samples * factor,
         locator=locator,
         rest_band=rest_band,
     )
@@ -234,7 +251,7 @@ def measure_beats(
         [
             level_crossing(
                 smooth,
-                times,
+                tl,
                 baseline[k] + _ONSET_LEVEL * amplitude[k],
                 start=previous[k],
                 stop=idx[k],
@@ -248,7 +265,7 @@ def measure_beats(
         [
             level_crossing(
                 smooth,
-                times,
+                tl,
                 baseline[k] + _MID_LEVEL * amplitude[k],
                 start=previous[k],
                 stop=idx[k],
@@ -258,12 +275,12 @@ def measure_beats(
             for k in range(n_beats)
         ]
     )
-    bound = _downstroke_bounds(times, onset, lowest, idx)
+    bound = _downstroke_bounds(tl, onset, lowest, idx)
     end = np.array(
         [
             level_crossing(
                 smooth,
-                times,
+                tl,
                 baseline[k] + _ONSET_LEVEL * amplitude[k],
                 start=idx[k],
                 stop=bound[k],
@@ -277,7 +294,7 @@ def measure_beats(
         [
             level_crossing(
                 smooth,
-                times,
+                tl,
                 baseline[k] + _MID_LEVEL * amplitude[k],
                 start=idx[k],
                 stop=bound[k],
@@ -288,13 +305,13 @@ def measure_beats(
         ]
     )
 
-    beat_start = np.where(np.isfinite(onset), onset, times[lowest])
-    beat_stop = np.where(np.isfinite(end), end, times[bound])
-    contraction, relaxation = _velocity_extremes(velocity_used, times, beat_start, beat_stop)
+    beat_start = np.where(np.isfinite(onset), onset, tl[lowest])
+    beat_stop = np.where(np.isfinite(end), end, tl[bound])
+    contraction, relaxation = _velocity_extremes(velocity_used, tl, beat_start, beat_stop)
     opd_amplitude = _opd_amplitudes(
         opd_in,
         times,
-        idx,
+        coarse_idx,
         beat_start,
         beat_stop,
         smooth_s,
@@ -305,9 +322,9 @@ def measure_beats(
         [
             _secondary_peak_time(
                 smooth,
-                times,
+                tl,
                 idx[k],
-                _stop_index(times, beat_stop[k], bound[k]),
+                _stop_index(tl, beat_stop[k], bound[k]),
                 baseline[k],
                 amplitude[k],
                 min_prominence=max(secondary_prominence * amplitude[k], secondary_snr * sigma),
@@ -340,7 +357,7 @@ def measure_beats(
             "upstroke_50_s": up50,
             "downstroke_50_s": down50,
             "secondary_peak_s": secondary_s,
-            "peak_index": idx,
+            "peak_index": coarse_idx,
         }
     )
     return frame
@@ -353,6 +370,35 @@ def _empty_frame():
     columns["secondary_peak"] = pd.Series(dtype=bool)
     columns["irregular"] = pd.Series(dtype="boolean")
     return pd.DataFrame(columns)
+
+
+#: landmark grid spacing when the trace is upsampled by a cubic spline
+_FINE_STEP_S = 0.004
+INTERPOLATIONS = ("cubic", "linear")
+
+
+def _upsampling_factor(times, interpolation):
+    if interpolation not in INTERPOLATIONS:
+        raise InputError(
+            f"interpolation must be one of {', '.join(INTERPOLATIONS)}, got {interpolation!r}"
+        )
+    if interpolation == "linear" or times.size < 4:
+        return 1
+    dt = float(np.median(np.diff(times)))
+    return int(np.clip(np.ceil(dt / _FINE_STEP_S), 1, 16))
+
+
+def _upsample(times, factor, smooth, locator, velocity, idx):
+    """Cubic-spline (not-a-knot) values on a grid ``factor`` times finer; samples kept."""
+    if factor == 1:
+        return times, smooth, locator, velocity, idx
+    from scipy.interpolate import CubicSpline
+
+    steps = np.arange(factor) / factor
+    fine = (times[:-1, None] + np.diff(times)[:, None] * steps[None, :]).ravel()
+    fine = np.concatenate([fine, times[-1:]])
+    out = [CubicSpline(times, y)(fine) for y in (smooth, locator, velocity)]
+    return fine, out[0], out[1], out[2], idx * factor
 
 
 def _refine_peaks(smooth, idx, radius):

@@ -150,11 +150,12 @@ def test_wrapped_phase_matches_opd_twin():
         rate_bpm=60,
         noise_nm=1.0,
         layout="confluent",
+        wavelength_nm=405.0,  # a violet laser: cells of 100-470 nm OPD wrap in phase
         rng=9,
     )
     opd = simulate_recording(kind="opd", **common)
     phase = simulate_recording(kind="wrapped_phase", **common)
-    assert np.nanmax(opd.frames) > 632.8  # crosses wrap boundaries
+    assert np.nanmax(opd.frames) > 405.0  # OPD above a wavelength: the phase wraps
     a, b = run(opd), run(phase)
     assert a.summary["beat_count"] == b.summary["beat_count"] > 0
     np.testing.assert_allclose(a.beats["peak_s"], b.beats["peak_s"], atol=0.5 / 30)
