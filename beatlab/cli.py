@@ -134,7 +134,26 @@ def build_parser() -> argparse.ArgumentParser:
         "--ibi-cv", type=float, default=0.0, metavar="CV", help="interval variability (0 regular)"
     )
     s.add_argument("--strain", type=float, default=0.03, help="peak fractional shortening")
-    s.add_argument("--noise-nm", type=float, default=1.0, metavar="NM")
+    s.add_argument("--noise-nm", type=float, default=1.0, metavar="NM",
+                   help="per-pixel white noise (RMS)")
+    s.add_argument("--correlated-noise-nm", type=float, default=0.0, metavar="NM",
+                   help="spatially correlated (coherent) noise, RMS")
+    s.add_argument("--jitter-nm", type=float, default=0.0, metavar="NM",
+                   help="per-frame global offset jitter, RMS")
+    s.add_argument("--drift-nm", type=float, default=0.0, metavar="NM",
+                   help="slow background drift reached at the end")
+    s.add_argument("--stage-drift-um", type=float, nargs=2, default=(0.0, 0.0),
+                   metavar=("DY", "DX"), help="rigid stage drift reached at the end")
+    s.add_argument("--clusters", type=int, default=1, metavar="N",
+                   help="number of cell clusters (contraction centres)")
+    s.add_argument("--cluster-rates-bpm", type=float, nargs="+", metavar="BPM",
+                   help="independent rate per cluster")
+    s.add_argument("--rise-s", type=float, default=0.15, metavar="S", help="onset to peak")
+    s.add_argument("--relax-s", type=float, default=0.30, metavar="S", help="relaxation time")
+    s.add_argument("--amplitude-pattern", type=float, nargs="+", metavar="X",
+                   help="per-beat amplitude multipliers, cycled (1 0.55 for alternans)")
+    s.add_argument("--ead-beats", type=int, nargs="+", metavar="K",
+                   help="0-based beats with an EAD-like second relaxation step")
     s.add_argument("--seed", type=int, default=0)
     return parser
 
@@ -198,10 +217,20 @@ def _cmd_simulate(args) -> int:
         pixel_size_um=args.pixel_size_um,
         wavelength_nm=args.wavelength_nm,
         layout=args.layout,
+        n_clusters=args.clusters,
         rate_bpm=args.rate_bpm,
         ibi_cv=args.ibi_cv,
+        cluster_rates_bpm=args.cluster_rates_bpm,
+        rise_s=args.rise_s,
+        relax_s=args.relax_s,
         strain=args.strain,
+        amplitude_pattern=args.amplitude_pattern,
+        ead_beats=args.ead_beats,
         noise_nm=args.noise_nm,
+        correlated_noise_nm=args.correlated_noise_nm,
+        jitter_nm=args.jitter_nm,
+        drift_nm=args.drift_nm,
+        stage_drift_um=tuple(args.stage_drift_um),
         kind=args.kind,
         rng=args.seed,
     )
