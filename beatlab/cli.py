@@ -134,26 +134,68 @@ def build_parser() -> argparse.ArgumentParser:
         "--ibi-cv", type=float, default=0.0, metavar="CV", help="interval variability (0 regular)"
     )
     s.add_argument("--strain", type=float, default=0.03, help="peak fractional shortening")
-    s.add_argument("--noise-nm", type=float, default=1.0, metavar="NM",
-                   help="per-pixel white noise (RMS)")
-    s.add_argument("--correlated-noise-nm", type=float, default=0.0, metavar="NM",
-                   help="spatially correlated (coherent) noise, RMS")
-    s.add_argument("--jitter-nm", type=float, default=0.0, metavar="NM",
-                   help="per-frame global offset jitter, RMS")
-    s.add_argument("--drift-nm", type=float, default=0.0, metavar="NM",
-                   help="slow background drift reached at the end")
-    s.add_argument("--stage-drift-um", type=float, nargs=2, default=(0.0, 0.0),
-                   metavar=("DY", "DX"), help="rigid stage drift reached at the end")
-    s.add_argument("--clusters", type=int, default=1, metavar="N",
-                   help="number of cell clusters (contraction centres)")
-    s.add_argument("--cluster-rates-bpm", type=float, nargs="+", metavar="BPM",
-                   help="independent rate per cluster")
+    s.add_argument(
+        "--noise-nm", type=float, default=1.0, metavar="NM", help="per-pixel white noise (RMS)"
+    )
+    s.add_argument(
+        "--correlated-noise-nm",
+        type=float,
+        default=0.0,
+        metavar="NM",
+        help="spatially correlated (coherent) noise, RMS",
+    )
+    s.add_argument(
+        "--jitter-nm",
+        type=float,
+        default=0.0,
+        metavar="NM",
+        help="per-frame global offset jitter, RMS",
+    )
+    s.add_argument(
+        "--drift-nm",
+        type=float,
+        default=0.0,
+        metavar="NM",
+        help="slow background drift reached at the end",
+    )
+    s.add_argument(
+        "--stage-drift-um",
+        type=float,
+        nargs=2,
+        default=(0.0, 0.0),
+        metavar=("DY", "DX"),
+        help="rigid stage drift reached at the end",
+    )
+    s.add_argument(
+        "--clusters",
+        type=int,
+        default=1,
+        metavar="N",
+        help="number of cell clusters (contraction centres)",
+    )
+    s.add_argument(
+        "--cluster-rates-bpm",
+        type=float,
+        nargs="+",
+        metavar="BPM",
+        help="independent rate per cluster",
+    )
     s.add_argument("--rise-s", type=float, default=0.15, metavar="S", help="onset to peak")
     s.add_argument("--relax-s", type=float, default=0.30, metavar="S", help="relaxation time")
-    s.add_argument("--amplitude-pattern", type=float, nargs="+", metavar="X",
-                   help="per-beat amplitude multipliers, cycled (1 0.55 for alternans)")
-    s.add_argument("--ead-beats", type=int, nargs="+", metavar="K",
-                   help="0-based beats with an EAD-like second relaxation step")
+    s.add_argument(
+        "--amplitude-pattern",
+        type=float,
+        nargs="+",
+        metavar="X",
+        help="per-beat amplitude multipliers, cycled (1 0.55 for alternans)",
+    )
+    s.add_argument(
+        "--ead-beats",
+        type=int,
+        nargs="+",
+        metavar="K",
+        help="0-based beats with an EAD-like second relaxation step",
+    )
     s.add_argument("--seed", type=int, default=0)
     return parser
 

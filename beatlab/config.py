@@ -131,7 +131,9 @@ PARAMETERS: dict[str, dict[str, Param]] = {
         "max_rate_bpm": P(
             240.0, "fastest plausible beating; sets the minimum peak interval", "bpm", lo=1.0
         ),
-        "min_snr": P(8.0, "minimum typical beat strength in units of the trace noise SD", "SD", lo=0.0),
+        "min_snr": P(
+            8.0, "minimum typical beat strength in units of the trace noise SD", "SD", lo=0.0
+        ),
         "min_relative_prominence": P(
             0.2,
             "minimum peak prominence relative to the typical beat amplitude",

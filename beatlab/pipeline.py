@@ -284,6 +284,8 @@ def analyze(
         rest_quantile=t_cfg["rest_quantile"],
         max_rest_frames=t_cfg["max_rest_frames"],
         level_tilt=t_cfg["level_tilt"],
+        refresh_s=t_cfg["refresh_s"],
+        times_s=times,
         progress=progress,
     )
     template = rest.template
@@ -322,18 +324,26 @@ def analyze(
     flow_cfg = cfg["flow"]
     rigid = flow_cfg["rigid"]
     rigid_pixels, rigid_source = _rigid_reference(template, cells, rigid, template_noise)
-    tracker = FlowTracker(
-        template,
-        mask,
-        pixel_size_um=px_um,
-        method=flow_cfg["method"],
-        preset=flow_cfg["preset"],
-        refine_iterations=flow_cfg["refine_iterations"],
-        window_px=flow_cfg["window_px"],
-        scale=_flow_scale(template, flow_cfg, rest.noise_var),
-        background=rigid_pixels,
-    )
-    leveller = PlaneLeveller(template, tilt=t_cfg["level_tilt"])
+    scale = _flow_scale(template, flow_cfg, rest.noise_var)
+
+    def reference(tmpl):
+        tracker = FlowTracker(
+            tmpl,
+            mask,
+            pixel_size_um=px_um,
+            method=flow_cfg["method"],
+            preset=flow_cfg["preset"],
+            refine_iterations=flow_cfg["refine_iterations"],
+            window_px=flow_cfg["window_px"],
+            scale=scale,
+            background=rigid_pixels,
+        )
+        return tmpl, PlaneLeveller(tmpl, tilt=t_cfg["level_tilt"]), tracker
+
+    # one reference (template, leveller, flow tracker), or one per refresh segment
+    refs = [reference(seg.template) for seg in rest.segments] or [reference(template)]
+    frame_ref = np.maximum(rest.segment_of(times), 0)
+    tracker = refs[0][2]
     tile_px = max(4, round(cfg["maps"]["tile_um"] / px_um))
     tiles = tile_labels(source.shape, tile_px=tile_px)
     n_tiles = int(tiles.max()) + 1
@@ -351,9 +361,10 @@ def analyze(
     label_tr = np.full((n_labels, n), np.nan)
     label_ms = np.full((n_labels, n), np.nan)
 
-    def one_frame(frame: np.ndarray, drift: np.ndarray | None):
+    def one_frame(frame: np.ndarray, drift: np.ndarray | None, ref: int):
+        template_i, leveller, tracker_i = refs[ref]
         lev = leveller.level(frame)
-        meas = tracker.measure(lev)
+        meas = tracker_i.measure(lev)
         estimate = np.asarray(meas.rigid_shift_px, dtype=float)
         shift = estimate if drift is None else np.asarray(drift, dtype=float)
         if rigid == "none":
@@ -363,7 +374,7 @@ def analyze(
         inside = mag[mask]
         value = float(np.nanmean(inside)) if np.isfinite(inside).any() else np.nan
         aligned = shift_image(lev, -shift) if np.hypot(*shift) > 0.02 else lev
-        sq = (aligned - template) ** 2
+        sq = (aligned - template_i) ** 2
         tmean = tile_means(np.where(mask, mag, np.nan), tiles, n_tiles)
         mflat = mag.ravel()
         ok = np.isfinite(mflat) & (flat_labels > 0)
@@ -391,8 +402,9 @@ def analyze(
     # Without a textured background, drift is measured where contraction is zero: at the
     # resting frames (median flow over the cells), and interpolated in time between them.
     rest_idx = np.flatnonzero(rest.rest)
-    interpolate = (rigid_source == "cell median" and rest.method == "rest-frames"
-                   and rest_idx.size >= 2)
+    interpolate = (
+        rigid_source == "cell median" and rest.method == "rest-frames" and rest_idx.size >= 2
+    )
     if interpolate:
         rigid_source = "cell median at rest frames, interpolated"
     workers = workers or min(4, os.cpu_count() or 1)
@@ -406,18 +418,27 @@ def analyze(
             for j in range(0, rest_idx.size, chunk):
                 batch = rest_idx[j : j + chunk]
                 frames = [source.frame(int(i)) for i in batch]
-                for i, res in zip(batch, pool.map(one_frame, frames, [None] * len(batch)),
-                                  strict=True):
+                for i, res in zip(
+                    batch,
+                    pool.map(one_frame, frames, [None] * len(batch), frame_ref[batch]),
+                    strict=True,
+                ):
                     store(i, res)
                 bar.update(len(batch))
             done[rest_idx] = True
-            drift_px = np.stack([np.interp(times, times[rest_idx], shifts[rest_idx, c])
-                                 for c in (0, 1)], axis=1)
+            drift_px = np.stack(
+                [np.interp(times, times[rest_idx], shifts[rest_idx, c]) for c in (0, 1)], axis=1
+            )
         for i0, block in source.chunks():
             todo = [k for k in range(len(block)) if not done[i0 + k]]
             drifts = [drift_px[i0 + k] if interpolate else None for k in todo]
-            for k, res in zip(todo, pool.map(one_frame, [block[k] for k in todo], drifts),
-                              strict=True):
+            for k, res in zip(
+                todo,
+                pool.map(
+                    one_frame, [block[k] for k in todo], drifts, [frame_ref[i0 + k] for k in todo]
+                ),
+                strict=True,
+            ):
                 store(i0 + k, res)
             bar.update(len(todo))
     if not np.isfinite(disp).any():
@@ -430,6 +451,13 @@ def analyze(
     sigma2 = float(np.nanmean(noise_map[mask])) if k > 1 else 0.0
     used = np.zeros(n, dtype=bool)
     used[rest.template_frames] = True
+    if rest.segments:
+        used[:] = False
+        for seg in rest.segments:
+            used[seg.frames] = True
+        k = int(np.median([seg.frames.size for seg in rest.segments]))
+        # the whole-recording variance also holds the slow change of the rest state
+        sigma2 = float(np.nanmean([np.nanmean(seg.noise_var[mask]) for seg in rest.segments]))
     factor = np.where(used, 1 - 1 / k, 1 + 1 / k) if k > 1 else np.ones(n)
     opd_change = opd_change_trace(ms, sigma2 * factor)
     v_cfg = cfg["velocity"]
@@ -533,12 +561,16 @@ def analyze(
                 "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
                 "masked_fraction": cells.masked_fraction,
                 "mask_method": cells.method,
-            "drift_reference": rigid_source if rigid != "none" else "none",
+                "drift_reference": rigid_source if rigid != "none" else "none",
                 "clipped_fraction": float(np.mean(clipped)),
                 "template_clipped_fraction": float(tracker.template_clipped_fraction),
                 "rest_template_method": rest.method,
                 "rest_frames": int(rest.rest.sum()),
                 "template_frames": int(rest.n_frames_used),
+            "template_segments": [
+                {"start_s": seg.start_s, "stop_s": seg.stop_s, "frames": int(seg.frames.size)}
+                for seg in rest.segments
+            ],
                 "frame_noise_nm": float(np.sqrt(sigma2)) if sigma2 > 0 else None,
                 "uneven_timing": rec.uneven_timing,
             },

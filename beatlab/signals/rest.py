@@ -8,8 +8,9 @@ levelled, are averaged into the template, which is less noisy than any single fr
 
 from __future__ import annotations
 
+import itertools
 import logging
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import cv2
 import numpy as np
@@ -24,6 +25,17 @@ logger = logging.getLogger(__name__)
 
 #: rest frames deviate at most this many times the frame noise floor for "rest-frames"
 _REST_FLOOR_FACTOR = 2.0
+
+
+@dataclass(frozen=True)
+class TemplateSegment:
+    """A rest template refreshed for the frames from ``start_s`` to ``stop_s``."""
+
+    start_s: float
+    stop_s: float
+    template: np.ndarray
+    noise_var: np.ndarray
+    frames: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -46,6 +58,9 @@ class RestTemplate:
         Number of frames averaged.
     template_frames : ndarray of int
         Indices of the frames averaged into the template.
+    segments : tuple of TemplateSegment
+        With a refresh interval: one template per stretch of time, from the resting frames
+        inside it (empty when one template serves the whole recording).
     method : str
         ``'rest-frames'``, or ``'least-deviating-frames'`` when no frames came close to the
         noise floor (fast or fibrillation-like beating: no true rest).
@@ -59,7 +74,15 @@ class RestTemplate:
     n_frames_used: int
     template_frames: np.ndarray
     method: str
+    segments: tuple = ()
     info: dict = field(default_factory=dict)
+
+    def segment_of(self, times_s: np.ndarray) -> np.ndarray:
+        """Index into :attr:`segments` of each time (all -1 with one template)."""
+        if not self.segments:
+            return np.full(np.shape(times_s), -1)
+        starts = np.array([seg.start_s for seg in self.segments])
+        return np.clip(np.searchsorted(starts, times_s, side="right") - 1, 0, len(starts) - 1)
 
 
 def block_mean(frame: np.ndarray, factor: int) -> np.ndarray:
@@ -145,6 +168,53 @@ def relaxed_score(frames: np.ndarray, *, iterations: int = 30) -> np.ndarray:
     return s - s.min()
 
 
+def _select_rest(aligned: np.ndarray, rest_quantile: float) -> np.ndarray:
+    """Resting frames among aligned, levelled block-averaged frames (T, y, x)."""
+    n = aligned.shape[0]
+    inner = aligned[:, 2:-2, 2:-2].reshape(n, -1)
+    score = relaxed_score(inner)
+    rest = score <= np.quantile(score, rest_quantile)
+    for _ in range(2):
+        ref = inner[rest].mean(axis=0)
+        deviation = np.sqrt(np.mean((inner - ref) ** 2, axis=1))
+        rest = deviation <= np.quantile(deviation, rest_quantile)
+    return rest
+
+
+def _spread(indices: np.ndarray, most: int) -> np.ndarray:
+    """At most ``most`` of ``indices``, evenly spaced."""
+    if indices.size > most:
+        indices = indices[np.round(np.linspace(0, indices.size - 1, most)).astype(int)]
+    return indices
+
+
+def _average_frames(source, idx, shifts, level_tilt, *, anchor):
+    """Mean of frames ``idx``, each moved to the rigid position ``anchor`` and levelled.
+
+    Returns the mean, the per-pixel variance of one frame about it and the frame count.
+    """
+    moved = []
+    for i in idx:
+        f = source.frame(int(i))
+        delta = shifts[i] - anchor
+        if np.hypot(*delta) > 0.02:
+            f = shift_image(f, -delta)
+        moved.append(f)
+    leveller = PlaneLeveller(moved[0], tilt=level_tilt)
+    stack = np.stack([leveller.level(f) for f in moved])
+    with np.errstate(invalid="ignore"):
+        template = np.nanmean(stack, axis=0) if np.isnan(stack).any() else stack.mean(axis=0)
+    k = stack.shape[0]
+    if k > 1:
+        with np.errstate(invalid="ignore"):
+            resid = np.nanmean((stack - template) ** 2, axis=0)
+        # each frame is part of the mean: E[resid] = (1 - 1/k) sigma^2
+        noise_var = resid * k / (k - 1)
+    else:
+        noise_var = np.full(template.shape, np.nan)
+    return template.astype(np.float32), noise_var.astype(np.float32), int(k)
+
+
 def _filled(frame: np.ndarray) -> np.ndarray:
     if np.isnan(frame).any():
         return np.where(np.isnan(frame), np.nanmedian(frame), frame).astype(np.float32)
@@ -163,6 +233,9 @@ def estimate_rest_template(
     max_rest_frames: int = 64,
     level_tilt: bool = True,
     lowres_px: int = 64,
+    refresh_s: float = 0.0,
+    times_s: np.ndarray | None = None,
+    max_lowres_mb: float = 256.0,
     progress: bool = False,
 ) -> RestTemplate:
     """Find the resting frames of a recording and average them into a rest template.
@@ -179,6 +252,15 @@ def estimate_rest_template(
         Level offset and tilt of each frame, not only the offset.
     lowres_px : int
         The cheap pass works on frames block-averaged to about this size.
+    refresh_s : float
+        If > 0, also build one template per stretch of this many seconds from the resting
+        frames inside it (:attr:`RestTemplate.segments`), so a slowly changing rest state
+        (migration, focus drift) never accumulates into displacement. Needs ``times_s``.
+    times_s : ndarray (T,), optional
+        Frame times in seconds (for ``refresh_s``).
+    max_lowres_mb : float
+        Upper bound of the block-averaged stack kept by the cheap pass; long recordings are
+        block-averaged more coarsely to stay below it.
     progress : bool
         Show a progress bar.
 
@@ -205,6 +287,11 @@ def estimate_rest_template(
 
     ny, nx = source.shape
     factor = max(1, min(ny, nx) // max(int(lowres_px), 8))
+    while (
+        source.n_frames * (ny // factor) * (nx // factor) * 4 > max_lowres_mb * 2**20
+        and min(ny, nx) // (factor + 1) >= 8
+    ):
+        factor += 1
     lows = []
     with tqdm(
         total=source.n_frames, desc="rest pass", unit="frame", disable=not progress, leave=False
@@ -260,34 +347,31 @@ def estimate_rest_template(
             floor,
         )
     # full-resolution template from the chosen frames
-    idx = np.flatnonzero(rest)
-    if idx.size > max_rest_frames:
-        idx = idx[np.round(np.linspace(0, idx.size - 1, max_rest_frames)).astype(int)]
     full_shifts = shifts * factor
-    first = source.frame(int(idx[0]))
-    base = (
-        shift_image(first, -full_shifts[idx[0]])
-        if np.hypot(*full_shifts[idx[0]]) > 0.02
-        else first
+    idx = _spread(np.flatnonzero(rest), max_rest_frames)
+    template, noise_var, k = _average_frames(
+        source, idx, full_shifts, level_tilt, anchor=np.zeros(2)
     )
-    leveller = PlaneLeveller(base, tilt=level_tilt)
-    frames = []
-    for i in idx:
-        f = source.frame(int(i))
-        if np.hypot(*full_shifts[i]) > 0.02:
-            f = shift_image(f, -full_shifts[i])
-        frames.append(leveller.level(f))
-    stack = np.stack(frames)
-    with np.errstate(invalid="ignore"):
-        template = np.nanmean(stack, axis=0) if np.isnan(stack).any() else stack.mean(axis=0)
-    k = stack.shape[0]
-    if k > 1:
-        with np.errstate(invalid="ignore"):
-            resid = np.nanmean((stack - template) ** 2, axis=0)
-        # each frame is part of the mean: E[resid] = (1 - 1/k) sigma^2
-        noise_var = resid * k / (k - 1)
-    else:
-        noise_var = np.full(template.shape, np.nan, dtype=np.float32)
+    segments = []
+    times = None if times_s is None else np.asarray(times_s, dtype=float) - times_s[0]
+    if refresh_s > 0 and times is not None and times[-1] > 1.5 * refresh_s:
+        edges = np.arange(0.0, times[-1] + refresh_s, refresh_s)
+        edges[-1] = np.inf
+        for lo, hi in itertools.pairwise(edges):
+            span = np.flatnonzero((times >= lo) & (times < hi))
+            if span.size < 4:  # a short last stretch joins the previous one
+                if segments:
+                    segments[-1] = replace(segments[-1], stop_s=float(hi))
+                continue
+            # the resting frames of this stretch, judged within it: the rest state of a
+            # drifting recording differs from one stretch to the next
+            local = _select_rest(aligned[span], rest_quantile)
+            sel = _spread(span[local], max_rest_frames)
+            anchor = np.median(full_shifts[sel], axis=0)
+            seg_t, seg_var, _ = _average_frames(
+                source, sel, full_shifts, level_tilt, anchor=anchor
+            )
+            segments.append(TemplateSegment(float(lo), float(hi), seg_t, seg_var, sel))
     return RestTemplate(
         template=template.astype(np.float32),
         rest=rest,
@@ -297,6 +381,7 @@ def estimate_rest_template(
         n_frames_used=int(k),
         template_frames=idx,
         method=method,
+        segments=tuple(segments),
         info={
             "deviation_floor_nm": floor,
             "rest_deviation_nm": rest_level,

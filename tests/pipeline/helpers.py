@@ -51,7 +51,7 @@ def match_beats(found: pd.DataFrame, truth: list[dict]) -> pd.DataFrame:
         k = int(np.argmin(np.abs(f_peaks - b["peak_s"])))
         if abs(f_peaks[k] - b["peak_s"]) < 0.4 * gap:
             row = {"beat": b["beat"]}
-            for col in TIMING + ["displacement_um", "ibi_s"]:
+            for col in [*TIMING, "displacement_um", "ibi_s"]:
                 tv = b.get(col)
                 fv = found.iloc[k][col]
                 row[f"{col}_err"] = (fv - tv) if (tv is not None and np.isfinite(fv)) else np.nan

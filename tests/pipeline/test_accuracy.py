@@ -8,7 +8,6 @@ import numpy as np
 import pytest
 
 from beatlab.synth import simulate_recording
-
 from tests.pipeline.helpers import TIMING, match_beats, run
 
 NOISY = dict(noise_nm=2.0, correlated_noise_nm=1.0, jitter_nm=3.0, drift_nm=20.0)
@@ -176,5 +175,5 @@ def test_two_independent_clusters_give_two_regions():
     assert res.summary["n_regions"] == 2
     rates = sorted(res.regions["beat_rate_bpm"].tolist())
     truth = sorted(c["summary"]["beat_rate_bpm"] for c in sim.truth["regions"])
-    for got, want in zip(rates, truth):
+    for got, want in zip(rates, truth, strict=False):
         assert got == pytest.approx(want, rel=0.01)

@@ -12,8 +12,9 @@ from beatlab.pipeline import analyze
 from beatlab.synth import simulate_recording
 from tests.pipeline.helpers import as_recording, match_beats, run
 
-COMMON = dict(duration_s=5, fps=30, shape_px=(256, 256), pixel_size_um=0.2, rate_bpm=60,
-              noise_nm=0.5, rng=21)
+COMMON = dict(
+    duration_s=5, fps=30, shape_px=(256, 256), pixel_size_um=0.2, rate_bpm=60, noise_nm=0.5, rng=21
+)
 
 
 def test_hologram_analysis_matches_opd_twin():
@@ -33,13 +34,44 @@ def test_hologram_analysis_matches_opd_twin():
 
 def test_cli_simulate_reconstruct_analyze(tmp_path):
     movie = tmp_path / "h.ome.tif"
-    assert main(["simulate", "--kind", "hologram", "--out", str(movie), "--duration-s", "4",
-                 "--size-px", "192", "--pixel-size-um", "0.2", "--seed", "4"]) == 0
+    assert (
+        main(
+            [
+                "simulate",
+                "--kind",
+                "hologram",
+                "--out",
+                str(movie),
+                "--duration-s",
+                "4",
+                "--size-px",
+                "192",
+                "--pixel-size-um",
+                "0.2",
+                "--seed",
+                "4",
+            ]
+        )
+        == 0
+    )
     reference = tmp_path / "h.reference.ome.tif"
     assert reference.exists()
     opd = tmp_path / "opd.ome.tif"
-    assert main(["reconstruct", str(movie), "--reference", str(reference),
-                 "--wavelength-nm", "632.8", "--out", str(opd)]) == 0
+    assert (
+        main(
+            [
+                "reconstruct",
+                str(movie),
+                "--reference",
+                str(reference),
+                "--wavelength-nm",
+                "632.8",
+                "--out",
+                str(opd),
+            ]
+        )
+        == 0
+    )
     rec = open_recording(opd)
     assert rec.kind == "opd" and rec.fps == pytest.approx(30.0)
     assert rec.pixel_size_um > 0.2 and rec.n_frames == 120
@@ -48,8 +80,22 @@ def test_cli_simulate_reconstruct_analyze(tmp_path):
     frame = rec.frame(0)
     assert np.percentile(frame, 99) > 100  # cells come out positive, in nm
     assert main(["analyze", str(opd), "--out", str(tmp_path / "a"), "--no-figures"]) == 0
-    assert main(["analyze", str(movie), "--kind", "hologram", "--reference", str(reference),
-                 "--out", str(tmp_path / "b"), "--no-figures"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(movie),
+                "--kind",
+                "hologram",
+                "--reference",
+                str(reference),
+                "--out",
+                str(tmp_path / "b"),
+                "--no-figures",
+            ]
+        )
+        == 0
+    )
     truth = json.loads((tmp_path / "h.truth.json").read_text())["summary"]
     for name in ("a", "b"):
         summary = json.loads((tmp_path / name / "summary.json").read_text())
@@ -62,7 +108,17 @@ def test_reconstruct_needs_wavelength_and_pixel_size(tmp_path, capsys):
     with pytest.raises(SystemExit) as exc:
         main(["reconstruct", str(path), "--out", str(tmp_path / "o.ome.tif")])
     assert exc.value.code == 2
-    code = main(["reconstruct", str(path), "--wavelength-nm", "632.8", "--fps", "30",
-                 "--out", str(tmp_path / "o.ome.tif")])
+    code = main(
+        [
+            "reconstruct",
+            str(path),
+            "--wavelength-nm",
+            "632.8",
+            "--fps",
+            "30",
+            "--out",
+            str(tmp_path / "o.ome.tif"),
+        ]
+    )
     assert code == 2
     assert "--pixel-size-um" in capsys.readouterr().err

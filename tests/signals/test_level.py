@@ -33,7 +33,7 @@ def test_robust_to_a_moving_patch():
 def test_offset_only_and_nan():
     rng = np.random.default_rng(2)
     template = _scene(rng)
-    y, x = np.mgrid[:64, :80]
+    _y, x = np.mgrid[:64, :80]
     frame = template + 5 + 0.05 * x
     frame[0, 0] = np.nan
     out = PlaneLeveller(template, tilt=False).level(frame)

@@ -84,7 +84,7 @@ def test_mask_drops_nan_and_handles_methods():
 
 
 def test_shift_image_exact_and_block_mean():
-    y, x = np.mgrid[:64, :64]
+    _y, x = np.mgrid[:64, :64]
     img = np.sin(2 * np.pi * x / 16).astype(np.float32)
     moved = shift_image(img, np.array([2.0, 0.0]))
     np.testing.assert_allclose(moved, np.sin(2 * np.pi * (x - 2) / 16), atol=1e-4)
