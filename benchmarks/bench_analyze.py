@@ -37,24 +37,37 @@ def main() -> None:
     args = parser.parse_args()
     from beatlab.synth import simulate_recording, write_simulation
 
-    print(f"{'frames':>7} {'size':>5} {'file MB':>8} {'s':>7} {'frames/s':>9} "
-          f"{'peak RSS MB':>12} {'beats':>6}")
+    print(
+        f"{'frames':>7} {'size':>5} {'file MB':>8} {'s':>7} {'frames/s':>9} "
+        f"{'peak RSS MB':>12} {'beats':>6}"
+    )
     with tempfile.TemporaryDirectory() as tmp:
         for duration in args.durations:
-            sim = simulate_recording(duration_s=duration, fps=args.fps,
-                                     shape_px=(args.size, args.size), rate_bpm=60, rng=0)
+            sim = simulate_recording(
+                duration_s=duration,
+                fps=args.fps,
+                shape_px=(args.size, args.size),
+                rate_bpm=60,
+                rng=0,
+            )
             path = Path(tmp) / f"bench_{duration:g}.ome.tif"
             write_simulation(sim, path)
             del sim
             t0 = time.perf_counter()
-            out = subprocess.run([sys.executable, "-c", CHILD, str(path)], check=True,
-                                 capture_output=True, text=True)
+            out = subprocess.run(
+                [sys.executable, "-c", CHILD, str(path)],
+                check=True,
+                capture_output=True,
+                text=True,
+            )
             _ = time.perf_counter() - t0
             r = json.loads(out.stdout.strip().splitlines()[-1])
             mb = path.stat().st_size / 2**20
-            print(f"{r['frames']:>7} {args.size:>5} {mb:>8.1f} {r['seconds']:>7.2f} "
-                  f"{r['frames'] / r['seconds']:>9.1f} {r['peak_rss_mb']:>12.1f} "
-                  f"{r['beats']:>6}")
+            print(
+                f"{r['frames']:>7} {args.size:>5} {mb:>8.1f} {r['seconds']:>7.2f} "
+                f"{r['frames'] / r['seconds']:>9.1f} {r['peak_rss_mb']:>12.1f} "
+                f"{r['beats']:>6}"
+            )
 
 
 if __name__ == "__main__":
