@@ -247,63 +247,28 @@ def measure_beats(
     n_beats = idx.size
     previous = np.concatenate([[0], idx[:-1]])
 
-    onset = np.array(
-        [
-            level_crossing(
-                smooth,
-                tl,
-                baseline[k] + _ONSET_LEVEL * amplitude[k],
-                start=previous[k],
-                stop=idx[k],
-                direction="up",
-                hysteresis=band,
-            )
-            for k in range(n_beats)
-        ]
-    )
-    up50 = np.array(
-        [
-            level_crossing(
-                smooth,
-                tl,
-                baseline[k] + _MID_LEVEL * amplitude[k],
-                start=previous[k],
-                stop=idx[k],
-                direction="up",
-                hysteresis=band,
-            )
-            for k in range(n_beats)
-        ]
-    )
+    def crossings(fraction, starts, stops, direction):
+        """Each beat's crossing of baseline + fraction x amplitude within its window."""
+        return np.array(
+            [
+                level_crossing(
+                    smooth,
+                    tl,
+                    baseline[k] + fraction * amplitude[k],
+                    start=starts[k],
+                    stop=stops[k],
+                    direction=direction,
+                    hysteresis=band,
+                )
+                for k in range(n_beats)
+            ]
+        )
+
+    onset = crossings(_ONSET_LEVEL, previous, idx, "up")
+    up50 = crossings(_MID_LEVEL, previous, idx, "up")
     bound = _downstroke_bounds(tl, onset, lowest, idx)
-    end = np.array(
-        [
-            level_crossing(
-                smooth,
-                tl,
-                baseline[k] + _ONSET_LEVEL * amplitude[k],
-                start=idx[k],
-                stop=bound[k],
-                direction="down",
-                hysteresis=band,
-            )
-            for k in range(n_beats)
-        ]
-    )
-    down50 = np.array(
-        [
-            level_crossing(
-                smooth,
-                tl,
-                baseline[k] + _MID_LEVEL * amplitude[k],
-                start=idx[k],
-                stop=bound[k],
-                direction="down",
-                hysteresis=band,
-            )
-            for k in range(n_beats)
-        ]
-    )
+    end = crossings(_ONSET_LEVEL, idx, bound, "down")
+    down50 = crossings(_MID_LEVEL, idx, bound, "down")
 
     beat_start = np.where(np.isfinite(onset), onset, tl[lowest])
     beat_stop = np.where(np.isfinite(end), end, tl[bound])
