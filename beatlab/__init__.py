@@ -17,8 +17,8 @@ from beatlab.io import Recording, open_recording
 from beatlab.pipeline import Analysis, analyze
 
 __all__ = [
-    "AnalysisError",
     "Analysis",
+    "AnalysisError",
     "BeatlabError",
     "BeatlabWarning",
     "ConfigError",

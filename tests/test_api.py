@@ -22,6 +22,7 @@ def test_import_has_no_side_effects():
 
 
 def test_python_m_beatlab_version():
-    out = subprocess.run([sys.executable, "-m", "beatlab", "--version"], capture_output=True,
-                         text=True)
+    out = subprocess.run(
+        [sys.executable, "-m", "beatlab", "--version"], capture_output=True, text=True
+    )
     assert out.returncode == 0 and beatlab.__version__ in out.stdout

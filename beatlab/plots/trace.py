@@ -8,17 +8,23 @@ from beatlab.plots.style import PALETTE
 
 __all__ = ["plot_trace"]
 
+_LABELS = {
+    "displacement_um": "displacement (µm)",
+    "velocity_um_s": "velocity (µm/s)",
+    "opd_change_nm": "OPD change (nm)",
+}
+
 
 def plot_trace(trace, beats, *, ax=None, column: str = "displacement_um"):
-    """Plot the primary trace against time with onset, peak and end of each beat.
+    """Plot a trace against time with onset, peak and end of each beat.
 
     Parameters
     ----------
     trace : pandas.DataFrame
         ``time_s`` and ``column`` (the trace.csv table).
     beats : pandas.DataFrame
-        ``onset_s``, ``peak_s``, ``end_s`` (the beats.csv table); ``secondary_peak`` beats are
-        marked.
+        ``onset_s``, ``peak_s``, ``end_s`` (the beats.csv table); beats with
+        ``secondary_peak`` get a star at ``secondary_peak_s``.
     ax : matplotlib Axes, optional
         Where to draw; a new figure otherwise.
     column : str
@@ -34,39 +40,42 @@ def plot_trace(trace, beats, *, ax=None, column: str = "displacement_um"):
         ax = plt.figure(figsize=(7, 3)).add_subplot()
     t = trace["time_s"].to_numpy()
     y = trace[column].to_numpy()
-    ax.plot(t, y, color=PALETTE["blue"], lw=1.0, label=column.replace("_", " "))
+    label = _LABELS.get(column, column)
+    ax.plot(t, y, color=PALETTE["blue"], lw=1.0, label=label.split(" (")[0])
 
     def at(times):
         times = np.asarray(times, dtype=float)
-        return times[np.isfinite(times)], np.interp(times[np.isfinite(times)], t, y)
+        times = times[np.isfinite(times)]
+        return times, np.interp(times, t, y)
 
     if len(beats):
-        for col, marker, color, name in (
+        marks = (
             ("onset_s", "^", PALETTE["green"], "onset (10 %)"),
             ("peak_s", "o", PALETTE["vermillion"], "peak"),
             ("end_s", "v", PALETTE["purple"], "end (10 %)"),
-        ):
+        )
+        for col, marker, color, name in marks:
             x, yy = at(beats[col])
             ax.plot(x, yy, marker, ms=4, color=color, ls="none", label=name)
         if "secondary_peak" in beats and beats["secondary_peak"].astype(bool).any():
-            x, yy = at(beats.loc[beats["secondary_peak"].astype(bool), "peak_s"])
+            flagged = beats["secondary_peak"].astype(bool)
+            where = "secondary_peak_s" if "secondary_peak_s" in beats else "peak_s"
+            x, yy = at(beats.loc[flagged, where])
             ax.plot(
                 x,
-                yy * 1.08,
+                yy,
                 "*",
-                ms=7,
+                ms=8,
                 color=PALETTE["orange"],
                 ls="none",
                 label="secondary peak (EAD-like)",
             )
-    unit = {
-        "displacement_um": "displacement (µm)",
-        "velocity_um_s": "velocity (µm/s)",
-        "opd_change_nm": "OPD change (nm)",
-    }.get(column, column)
     ax.set_xlabel("time (s)")
-    ax.set_ylabel(unit)
+    ax.set_ylabel(label)
     ax.set_xlim(t[0], t[-1])
-    ax.legend(loc="upper right", frameon=False, ncol=4)
-    ax.set_title(f"{len(beats)} beats")
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.18), frameon=False, ncol=5)
+    title = f"{len(beats)} beats"
+    if len(beats) > 1:
+        title += f", {60.0 / np.nanmean(np.diff(beats['peak_s'].to_numpy(float))):.1f} bpm"
+    ax.set_title(title)
     return ax

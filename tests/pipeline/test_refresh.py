@@ -19,8 +19,9 @@ def _drifting_rest(sim, amplitude_nm=25.0):
 def test_refreshed_template_keeps_the_rest_level_flat():
     from beatlab.pipeline import analyze
 
-    sim = simulate_recording(duration_s=12, fps=20, shape_px=(80, 80), rate_bpm=40,
-                             noise_nm=1.0, rng=3)
+    sim = simulate_recording(
+        duration_s=12, fps=20, shape_px=(80, 80), rate_bpm=40, noise_nm=1.0, rng=3
+    )
     frames = _drifting_rest(sim)
     rest = np.atleast_2d(sim.activation)[0] < 1e-3
     fixed = analyze(as_recording(sim, frames=frames))

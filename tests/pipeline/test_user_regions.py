@@ -14,21 +14,40 @@ from beatlab.synth import simulate_recording, write_simulation
 @pytest.fixture(scope="module")
 def two_clusters(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("roi")
-    sim = simulate_recording(duration_s=12, fps=30, shape_px=(128, 128), n_clusters=2,
-                             cluster_rates_bpm=(40, 65), noise_nm=1.0, rng=12)
+    sim = simulate_recording(
+        duration_s=12,
+        fps=30,
+        shape_px=(128, 128),
+        n_clusters=2,
+        cluster_rates_bpm=(40, 65),
+        noise_nm=1.0,
+        rng=12,
+    )
     paths = write_simulation(sim, tmp / "two.ome.tif")
     return sim, tmp, paths
 
 
 def test_label_image_gives_one_result_per_region(two_clusters):
-    sim, tmp, paths = two_clusters
+    sim, tmp, _paths = two_clusters
     from scipy import ndimage
 
     labels = ndimage.grey_dilation(sim.cluster_labels, size=(5, 5)).astype(np.uint16)
     tifffile.imwrite(tmp / "rois.tif", labels)
     out = tmp / "res"
-    assert main(["analyze", str(tmp / "two.ome.tif"), "--regions", str(tmp / "rois.tif"),
-                 "--out", str(out), "--no-figures"]) == 0
+    assert (
+        main(
+            [
+                "analyze",
+                str(tmp / "two.ome.tif"),
+                "--regions",
+                str(tmp / "rois.tif"),
+                "--out",
+                str(out),
+                "--no-figures",
+            ]
+        )
+        == 0
+    )
     regions = pd.read_csv(out / "regions.csv")
     assert regions["region"].tolist() == [1, 2]
     truth = {r["label"]: r["summary"]["beat_rate_bpm"] for r in sim.truth["regions"]}
@@ -45,7 +64,16 @@ def test_label_image_gives_one_result_per_region(two_clusters):
 def test_label_image_of_the_wrong_size(two_clusters, capsys):
     _, tmp, _ = two_clusters
     tifffile.imwrite(tmp / "small.tif", np.ones((10, 10), np.uint16))
-    code = main(["analyze", str(tmp / "two.ome.tif"), "--regions", str(tmp / "small.tif"),
-                 "--out", str(tmp / "bad"), "--no-figures"])
+    code = main(
+        [
+            "analyze",
+            str(tmp / "two.ome.tif"),
+            "--regions",
+            str(tmp / "small.tif"),
+            "--out",
+            str(tmp / "bad"),
+            "--no-figures",
+        ]
+    )
     assert code == 2
     assert "label image shape" in capsys.readouterr().err
