@@ -20,6 +20,7 @@ from beatlab.beats import average_beat, detect_beats, estimate_noise, measure_be
 from beatlab.config import load_config
 from beatlab.errors import InputError
 from beatlab.frames import OPDSource
+from beatlab.opd import check_cell_sign
 from beatlab.io import open_recording
 from beatlab.io.recording import Recording
 from beatlab.regions import find_regions, region_table
@@ -289,6 +290,8 @@ def analyze(
         progress=progress,
     )
     template = rest.template
+    if rec.kind != "hologram":  # holograms choose their side-band so that cells are positive
+        check_cell_sign(template, source=rec.source)
     if not np.isfinite(template).any():
         raise InputError(f"{rec.source}: the rest template is all NaN; nothing to analyse")
     m_cfg = cfg["mask"]

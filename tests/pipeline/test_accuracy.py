@@ -7,8 +7,9 @@ noise-free trace (see beatlab.synth), computed independently of beatlab.beats.
 import numpy as np
 import pytest
 
+from beatlab.pipeline import analyze
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import TIMING, match_beats, run
+from tests.pipeline.helpers import TIMING, as_recording, match_beats, run
 
 NOISY = dict(noise_nm=2.0, correlated_noise_nm=1.0, jitter_nm=3.0, drift_nm=20.0)
 
@@ -177,3 +178,11 @@ def test_two_independent_clusters_give_two_regions():
     truth = sorted(c["summary"]["beat_rate_bpm"] for c in sim.truth["regions"])
     for got, want in zip(rates, truth, strict=False):
         assert got == pytest.approx(want, rel=0.01)
+
+
+def test_negative_cells_warn():
+    from beatlab import BeatlabWarning
+
+    sim = simulate_recording(duration_s=3, fps=15, shape_px=(64, 64), rate_bpm=0, rng=1)
+    with pytest.warns(BeatlabWarning, match="negative OPD"):
+        analyze(as_recording(sim, frames=-sim.frames))
