@@ -35,7 +35,7 @@ class ReferenceBasis(NamedTuple):
 
     reference: np.ndarray  # (Y, X) float32
     basis: tuple  # the k basis images (gradients, then brightness terms), (Y, X) float32
-    inverse: np.ndarray  # (Y, X, k, k) float32 inverse of the damped windowed normal matrix
+    rows: tuple  # rows 0 and 1 of the inverse normal matrix: 2 tuples of k (Y, X) float32
     window_px: float
     textured: bool  # False when the reference has no gradient anywhere (constant image)
 
@@ -76,10 +76,15 @@ def prepare_reference(
     if textured:
         damping = _DAMPING * np.where(diag > 0, diag, grad_energy)
         normal[..., np.arange(k), np.arange(k)] += damping
-        inverse = np.linalg.inv(normal).astype(np.float32)
+        inverse = np.linalg.inv(normal)
     else:
-        inverse = np.zeros_like(normal, dtype=np.float32)
-    return ReferenceBasis(ref, tuple(basis), inverse, float(window_px), textured)
+        inverse = np.zeros_like(normal)
+    # contiguous planes: the per-frame solve is then a few fast elementwise products
+    rows = tuple(
+        tuple(np.ascontiguousarray(inverse[..., comp, j], dtype=np.float32) for j in range(k))
+        for comp in (0, 1)
+    )
+    return ReferenceBasis(ref, tuple(basis), rows, float(window_px), textured)
 
 
 def refine_with_basis(
@@ -95,7 +100,6 @@ def refine_with_basis(
     coeffs = ndi.spline_filter(np.asarray(moving, dtype=np.float64), order=3, mode="nearest")
     ny, nx = basis.reference.shape
     rows, cols = np.mgrid[0:ny, 0:nx].astype(np.float32)
-    inv = basis.inverse
     for _ in range(iterations):
         warped = ndi.map_coordinates(
             coeffs,
@@ -109,6 +113,9 @@ def refine_with_basis(
         rhs = [gaussian_window(b * error, basis.window_px) for b in basis.basis]
         # only the two displacement components of the solution are needed
         for comp in (0, 1):
-            step = sum(inv[..., comp, j] * rhs[j] for j in range(len(rhs)))
+            row = basis.rows[comp]
+            step = row[0] * rhs[0]
+            for j in range(1, len(rhs)):
+                step += row[j] * rhs[j]
             out[..., comp] -= step
     return out
