@@ -84,9 +84,26 @@ def test_mask_drops_nan_and_handles_methods():
 
 
 def test_shift_image_exact_and_block_mean():
-    _y, x = np.mgrid[:64, :64]
+    y, x = np.mgrid[:64, :64]
     img = np.sin(2 * np.pi * x / 16).astype(np.float32)
     moved = shift_image(img, np.array([2.0, 0.0]))
-    np.testing.assert_allclose(moved, np.sin(2 * np.pi * (x - 2) / 16), atol=1e-4)
+    # mirror padding: exact away from the border the content moved in from
+    np.testing.assert_allclose(moved[:, 8:-8], np.sin(2 * np.pi * (x - 2) / 16)[:, 8:-8],
+                               atol=1e-3)
+    smooth = np.exp(-((x - 30.0) ** 2 + (y - 34.0) ** 2) / 50.0).astype(np.float32)
+    moved = shift_image(smooth, np.array([0.3, -0.7]))
+    truth = np.exp(-((x - 30.3) ** 2 + (y - 33.3) ** 2) / 50.0)
+    np.testing.assert_allclose(moved, truth, atol=1e-4)
     a = np.arange(16, dtype=np.float32).reshape(4, 4)
     np.testing.assert_allclose(block_mean(a, 2), [[2.5, 4.5], [10.5, 12.5]])
+
+
+def test_no_rest_falls_back_and_says_so():
+    # beats faster than their own kinetics: the culture never relaxes (fibrillation-like)
+    sim = simulate_recording(duration_s=4, fps=30, shape_px=(80, 80), rate_bpm=200,
+                             rise_s=0.15, relax_s=0.35, noise_nm=1.0, rng=4)
+    rest = _rest(sim)
+    assert rest.method == "least-deviating-frames"
+    # the frames taken are still the least contracted ones
+    act = np.atleast_2d(sim.activation)[0]
+    assert act[rest.rest].mean() < act.mean()
