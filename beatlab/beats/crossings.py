@@ -51,7 +51,7 @@ def _fit_crossing(times, values, level, guess, t_from, t_to, start, stop):
     return guess + min(inside, key=abs)
 
 
-def level_crossing(values, times_s, level, *, start, stop, direction, hysteresis=0.0):
+def level_crossing(values, times_s, level, *, start, stop, direction, hysteresis=0.0, reject=0.0):
     """Time of the last crossing of `level` in one direction within samples start..stop.
 
     Parameters
@@ -72,6 +72,11 @@ def level_crossing(values, times_s, level, *, start, stop, direction, hysteresis
         plain rule. With a band, a crossing only counts once the trace has left the band on
         the far side, and the time is the midpoint of the first and last crossing of the level
         inside that final passage through the band (see Notes).
+
+    reject : float
+        Downward crossings only: once the trace has come down through the band, later
+        excursions above the band that never rise more than ``reject`` above the level are
+        left out of the search (noise spikes of the rest period); 0 keeps them.
 
     Returns
     -------
@@ -112,8 +117,25 @@ def level_crossing(values, times_s, level, *, start, stop, direction, hysteresis
     band = max(float(hysteresis), 0.0)
     window = values[start : stop + 1]
     if direction == "down":
+        if reject > band:
+            stop = _before_spikes(values, start, stop, level, band, reject)
+            window = values[start : stop + 1]
         return _last_down(times_s, values, window, start, stop, level, band)
     return _last_up(times_s, values, window, start, stop, level, band)
+
+
+def _before_spikes(values, start, stop, level, band, reject):
+    """Last index to search: before a rebound that stays within ``reject`` of the level."""
+    clearly_above = np.flatnonzero(values[start : stop + 1] > level + reject)
+    if clearly_above.size == 0:
+        return stop
+    top = start + int(clearly_above[-1])
+    down = np.flatnonzero(values[top + 1 : stop + 1] <= level - band)
+    if down.size == 0:
+        return stop
+    came_down = top + 1 + int(down[0])
+    rebound = np.flatnonzero(values[came_down + 1 : stop + 1] > level + band)
+    return came_down + int(rebound[0]) if rebound.size else stop
 
 
 def _last_down(times, values, window, start, stop, level, band):

@@ -65,6 +65,7 @@ def measure_beats(
     irregular_tolerance=0.25,
     smooth_s=0.02,
     hysteresis_sd=2.5,
+    hysteresis_fraction=0.075,
     baseline_window_s=0.1,
     baseline_min_samples=3,
     baseline_smooth_s=0.05,
@@ -119,6 +120,13 @@ def measure_beats(
     hysteresis_sd : float
         Half-width of the noise band of the crossing search, in noise SDs of the smoothed
         trace (see :func:`beatlab.beats.crossings.level_crossing`); 0 is the plain rule.
+    hysteresis_fraction : float
+        On a noisy trace, an excursion back above a downstroke level after the trace has
+        come down counts only if it rises more than this fraction of the beat's amplitude
+        above the level (0.075); smaller ones are rest-period spikes, which are
+        heavier-tailed than the robust noise SD suggests. A second relaxation step (above
+        20 % by the definition of a secondary peak) still counts. No effect on a clean
+        trace.
     baseline_window_s, baseline_min_samples
         Baseline window (s) and its fewest samples (see :func:`estimate_beat_baselines`).
     baseline_smooth_s : float
@@ -259,6 +267,7 @@ def measure_beats(
                     stop=stops[k],
                     direction=direction,
                     hysteresis=band,
+                    reject=hysteresis_fraction * amplitude[k] if band > 0 else 0.0,
                 )
                 for k in range(n_beats)
             ]

@@ -417,3 +417,19 @@ def test_irregular_flag_uses_the_median_ibi():
     assert beats["irregular"].iloc[1:].tolist() == [False, False, False, True, False, False]
     loose = measure_beats(y, t, detect_beats(y, t), irregular_tolerance=0.6)
     assert not loose["irregular"].iloc[1:].any()
+
+
+def test_rest_spike_after_relaxation_does_not_move_the_end():
+    # a noisy trace with a one-frame spike just above the 10 % level during the rest that
+    # follows a beat: "the last downward crossing" must not jump to the spike
+    fps = 30
+    rng = np.random.default_rng(3)
+    starts = regular_starts(60)
+    t, y = simulate(fps, starts, bpm=60)
+    clean = measure_beats(y, t, detect_beats(y, t))
+    noisy = y + rng.normal(0, 0.01, y.size)
+    spike = int(np.searchsorted(t, clean["end_s"].iloc[1] + 0.3))
+    noisy[spike] = FLOOR_UM + 0.15  # 5 % of the amplitude above the 10 % level
+    beats = measure_beats(noisy, t, detect_beats(noisy, t))
+    assert len(beats) == len(clean)
+    assert beats["end_s"].iloc[1] == pytest.approx(clean["end_s"].iloc[1], abs=1.0 / fps)
