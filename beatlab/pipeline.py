@@ -20,9 +20,9 @@ from beatlab.beats import average_beat, detect_beats, estimate_noise, measure_be
 from beatlab.config import load_config
 from beatlab.errors import InputError
 from beatlab.frames import OPDSource
-from beatlab.opd import check_cell_sign
 from beatlab.io import open_recording
 from beatlab.io.recording import Recording
+from beatlab.opd import check_cell_sign
 from beatlab.regions import find_regions, region_table
 from beatlab.rhythm import summarize_rhythm
 from beatlab.signals.flow import FlowTracker
