@@ -570,10 +570,10 @@ def analyze(
                 "rest_template_method": rest.method,
                 "rest_frames": int(rest.rest.sum()),
                 "template_frames": int(rest.n_frames_used),
-            "template_segments": [
-                {"start_s": seg.start_s, "stop_s": seg.stop_s, "frames": int(seg.frames.size)}
-                for seg in rest.segments
-            ],
+                "template_segments": [
+                    {"start_s": seg.start_s, "stop_s": seg.stop_s, "frames": int(seg.frames.size)}
+                    for seg in rest.segments
+                ],
                 "frame_noise_nm": float(np.sqrt(sigma2)) if sigma2 > 0 else None,
                 "uneven_timing": rec.uneven_timing,
             },

@@ -88,8 +88,9 @@ def test_shift_image_exact_and_block_mean():
     img = np.sin(2 * np.pi * x / 16).astype(np.float32)
     moved = shift_image(img, np.array([2.0, 0.0]))
     # mirror padding: exact away from the border the content moved in from
-    np.testing.assert_allclose(moved[:, 8:-8], np.sin(2 * np.pi * (x - 2) / 16)[:, 8:-8],
-                               atol=1e-3)
+    np.testing.assert_allclose(
+        moved[:, 8:-8], np.sin(2 * np.pi * (x - 2) / 16)[:, 8:-8], atol=1e-3
+    )
     smooth = np.exp(-((x - 30.0) ** 2 + (y - 34.0) ** 2) / 50.0).astype(np.float32)
     moved = shift_image(smooth, np.array([0.3, -0.7]))
     truth = np.exp(-((x - 30.3) ** 2 + (y - 33.3) ** 2) / 50.0)
@@ -100,8 +101,16 @@ def test_shift_image_exact_and_block_mean():
 
 def test_no_rest_falls_back_and_says_so():
     # beats faster than their own kinetics: the culture never relaxes (fibrillation-like)
-    sim = simulate_recording(duration_s=4, fps=30, shape_px=(80, 80), rate_bpm=200,
-                             rise_s=0.15, relax_s=0.35, noise_nm=1.0, rng=4)
+    sim = simulate_recording(
+        duration_s=4,
+        fps=30,
+        shape_px=(80, 80),
+        rate_bpm=200,
+        rise_s=0.15,
+        relax_s=0.35,
+        noise_nm=1.0,
+        rng=4,
+    )
     rest = _rest(sim)
     assert rest.method == "least-deviating-frames"
     # the frames taken are still the least contracted ones
