@@ -141,6 +141,12 @@ PARAMETERS: dict[str, dict[str, Param]] = {
             lo=0.0,
             hi=1.0,
         ),
+        "interpolation": P(
+            "cubic",
+            "sub-frame landmarks: on the trace upsampled by a cubic spline through every frame, "
+            "or literally linear crossings and a 3-sample parabola (biased at low frame rates)",
+            choices=("cubic", "linear"),
+        ),
         "secondary_prominence": P(
             0.1,
             "EAD-like secondary peak: minimum prominence",

@@ -122,6 +122,7 @@ def _beats_and_summary(
         secondary_prominence=b["secondary_prominence"],
         secondary_min_level=b["secondary_min_level"],
         irregular_tolerance=b["irregular_tolerance"],
+        interpolation=b["interpolation"],
     )
     summary = summarize_rhythm(
         beats,

@@ -186,3 +186,17 @@ def test_negative_cells_warn():
     sim = simulate_recording(duration_s=3, fps=15, shape_px=(64, 64), rate_bpm=0, rng=1)
     with pytest.warns(BeatlabWarning, match="negative OPD"):
         analyze(as_recording(sim, frames=-sim.frames))
+
+
+def test_literal_linear_landmarks_are_available_and_more_biased_at_15_fps():
+    sim = simulate_recording(
+        duration_s=6, fps=15, shape_px=(80, 80), rate_bpm=60, noise_nm=1.0, rng=5
+    )
+    cubic = run(sim)
+    linear = run(sim, {"beats": {"interpolation": "linear"}})
+    assert linear.summary["parameters"]["beats"]["interpolation"] == "linear"
+    err = {
+        name: np.median(np.abs(match_beats(r.beats, sim.truth["beats"])["time_to_peak_s_err"]))
+        for name, r in (("cubic", cubic), ("linear", linear))
+    }
+    assert err["cubic"] < err["linear"]
