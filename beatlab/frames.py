@@ -12,7 +12,7 @@ import numpy as np
 
 from beatlab.errors import InputError
 from beatlab.io.recording import Recording
-from beatlab.opd import phase_to_opd, unwrap_phase_ls, wrapped_difference
+from beatlab.opd import phase_to_opd, unwrap_in_time, unwrap_phase_ls
 
 __all__ = ["OPDSource"]
 
@@ -97,13 +97,12 @@ class OPDSource:
             out = block if self.opd_scale == 1.0 else block * np.float32(self.opd_scale)
             return np.asarray(out, dtype=np.float32)
         if kind == "phase":
-            out = np.empty(block.shape, dtype=np.float32)
-            for k, frame in enumerate(block):
-                phase = self._phase_ref_unwrapped + wrapped_difference(
-                    frame.astype(np.float64) * self.phase_scale, self._phase_ref
-                )
-                out[k] = phase_to_opd(phase, self.recording.wavelength_nm)
-            return out
+            phases = unwrap_in_time(
+                (frame.astype(np.float64) * self.phase_scale for frame in block),
+                reference_wrapped=self._phase_ref,
+                reference_unwrapped=self._phase_ref_unwrapped,
+            )
+            return np.stack([phase_to_opd(p, self.recording.wavelength_nm) for p in phases])
         return np.stack(list(self._reconstructor.opd_frames(block)))
 
     def chunks(
