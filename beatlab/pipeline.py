@@ -14,6 +14,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy import ndimage
 
 from beatlab._version import __version__
 from beatlab.beats import average_beat, detect_beats, estimate_noise, measure_beats
@@ -23,7 +24,7 @@ from beatlab.frames import OPDSource
 from beatlab.io import open_recording
 from beatlab.io.recording import Recording
 from beatlab.opd import check_cell_sign
-from beatlab.regions import find_regions, region_table
+from beatlab.regions import find_regions, region_table, split_regions
 from beatlab.rhythm import summarize_rhythm
 from beatlab.signals.flow import FlowTracker
 from beatlab.signals.level import PlaneLeveller
@@ -324,6 +325,16 @@ def analyze(
         labels = np.where(np.isfinite(template), labels, 0).astype(np.int64)
     else:
         labels = cells.labels if cells.method == "threshold" else mask.astype(np.int64)
+        if cfg["regions"]["detect"] and rest.activity is not None:
+            # one connected cluster (or a confluent sheet) may hold parts beating on their own
+            labels = split_regions(
+                labels,
+                ndimage.uniform_filter1d(rest.activity, 3, axis=0),
+                block_px=int(rest.info["block_factor"]),
+                min_area_px=cfg["regions"]["min_area_um2"] / px_um**2,
+                merge_correlation=cfg["regions"]["merge_correlation"],
+                active=lambda trace: detect_beats(trace, times).size >= 2,
+            )
     n_labels = int(labels.max())
     flow_cfg = cfg["flow"]
     rigid = flow_cfg["rigid"]

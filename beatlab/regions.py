@@ -17,10 +17,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import ndimage
 
 from beatlab.errors import ConfigError, InputError
 
-__all__ = ["RegionSet", "find_regions", "region_table"]
+__all__ = ["RegionSet", "find_regions", "region_table", "split_regions"]
 
 _FIXED_COLUMNS = ("region", "area_um2", "centroid_x_um", "centroid_y_um")
 
@@ -248,6 +249,130 @@ def find_regions(
         members=[tuple(int(m) + 1 for m in g) for g in members],
         dropped=dropped,
     )
+
+
+def split_regions(
+    labels,
+    activity,
+    *,
+    block_px,
+    min_area_px,
+    split_correlation=0.5,
+    merge_correlation=0.8,
+    min_blocks=4,
+    active=None,
+):
+    """Split connected clusters whose parts beat independently.
+
+    Parameters
+    ----------
+    labels : ndarray of int (Y, X)
+        Connected clusters (0 = none), e.g. a cell mask's components or the whole
+        confluent field.
+    activity : ndarray (T, by, bx)
+        An activity trace per block of ``block_px`` x ``block_px`` pixels (for example the
+        absolute OPD deviation from the rest state of block-averaged frames).
+    block_px : int
+        Block size in pixels.
+    min_area_px : float
+        A part must cover at least this many pixels (and ``min_blocks`` blocks) to stand on
+        its own.
+    split_correlation : float
+        Neighbouring blocks whose traces correlate at least this much grow one part.
+    merge_correlation : float
+        Parts whose mean traces correlate at least this much beat together and stay one.
+    min_blocks : int
+        Fewest blocks of a part.
+    active : callable, optional
+        ``active(trace) -> bool`` on a part's mean activity trace (T,); parts that are not
+        active (e.g. patches of correlated noise) do not stand on their own.
+
+    Returns
+    -------
+    ndarray of int (Y, X)
+        New labels 1..n (0 outside); a cluster that does not split keeps one label.
+
+    Notes
+    -----
+    Blocks are grown into parts by union-find over 4-neighbours that correlate (noise makes
+    single blocks unreliable, so the decision is taken on the parts' mean traces: parts are
+    joined back whenever those correlate above ``merge_correlation``). Pixels take the part
+    of the nearest block that belongs to one.
+    """
+    lab = _check_labels(labels)
+    act = np.asarray(activity, dtype=np.float64)
+    if act.ndim != 3:
+        raise InputError(f"activity must be (T, by, bx), got shape {act.shape}")
+    _, by, bx = act.shape
+    b = int(block_px)
+    ny, nx = lab.shape
+    out = np.zeros_like(lab)
+    next_label = 1
+    crop = lab[: by * b, : bx * b].reshape(by, b, bx, b)
+    for value in np.unique(lab[lab > 0]):
+        pixels = lab == value
+        share = (crop == value).mean(axis=(1, 3))
+        blocks = np.argwhere(share >= 0.5)
+        groups = []
+        if len(blocks) >= 2 * min_blocks and pixels.sum() >= 2 * min_area_px:
+            groups = _independent_parts(
+                act,
+                blocks,
+                b,
+                min_area_px,
+                split_correlation,
+                merge_correlation,
+                min_blocks,
+                active,
+            )
+        if len(groups) < 2:
+            out[pixels] = next_label
+            next_label += 1
+            continue
+        seed = np.full((by, bx), -1)
+        for g, members in enumerate(groups):
+            seed[blocks[members, 0], blocks[members, 1]] = g
+        _, (iy, ix) = ndimage.distance_transform_edt(seed < 0, return_indices=True)
+        nearest = seed[iy, ix]
+        rows = np.minimum(np.arange(ny) // b, by - 1)
+        cols = np.minimum(np.arange(nx) // b, bx - 1)
+        part = nearest[rows[:, None], cols[None, :]]
+        for g in range(len(groups)):
+            out[pixels & (part == g)] = next_label
+            next_label += 1
+    return out
+
+
+def _independent_parts(act, blocks, b, min_area_px, split_r, merge_r, min_blocks, active):
+    """Groups (lists of indices into ``blocks``) that beat independently, or []."""
+    traces = act[:, blocks[:, 0], blocks[:, 1]].T
+    r = _correlation_matrix(traces)
+    index = {tuple(p): i for i, p in enumerate(blocks)}
+    uf = _UnionFind(len(blocks))
+    for i, (y, x) in enumerate(blocks):
+        for dy, dx in ((0, 1), (1, 0)):
+            j = index.get((y + dy, x + dx))
+            if j is not None and r[i, j] >= split_r:
+                uf.union(i, j)
+    roots = {}
+    for i in range(len(blocks)):
+        roots.setdefault(uf.find(i), []).append(i)
+    big = [m for m in roots.values() if len(m) >= min_blocks and len(m) * b * b >= min_area_px]
+    if active is not None:
+        big = [m for m in big if active(traces[m].mean(axis=0))]
+    if len(big) < 2:
+        return []
+    means = np.stack([traces[m].mean(axis=0) for m in big])
+    rr = _correlation_matrix(means)
+    uf2 = _UnionFind(len(big))
+    for i in range(len(big)):
+        for j in range(i + 1, len(big)):
+            if rr[i, j] >= merge_r:
+                uf2.union(i, j)
+    merged = {}
+    for i, m in enumerate(big):
+        merged.setdefault(uf2.find(i), []).extend(m)
+    return list(merged.values()) if len(merged) >= 2 else []
 
 
 def region_table(regionset, summaries):

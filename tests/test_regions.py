@@ -199,3 +199,40 @@ def test_find_regions_validates_inputs():
     before = traces.copy()
     find_regions(lab, traces, pixel_size_um=1.0)
     np.testing.assert_array_equal(traces, before)
+
+
+def _activity(rng, shape=(12, 12), t=300):
+    """Block activity: left half beats at one rhythm, right half at another (plus noise)."""
+    times = np.arange(t) / 30.0
+    a = np.clip(np.sin(2 * np.pi * 0.67 * times), 0, None) ** 4
+    b = np.clip(np.sin(2 * np.pi * 1.08 * times + 1.0), 0, None) ** 4
+    act = rng.normal(0, 0.05, (t, *shape))
+    act[:, :, :6] += a[:, None, None]
+    act[:, :, 6:] += b[:, None, None]
+    return act
+
+
+def test_split_regions_separates_independent_halves():
+    from beatlab.regions import split_regions
+
+    rng = np.random.default_rng(0)
+    labels = np.ones((48, 48), dtype=int)
+    out = split_regions(labels, _activity(rng), block_px=4, min_area_px=64)
+    assert set(np.unique(out)) == {1, 2}
+    assert len(np.unique(out[:, :20])) == 1 and len(np.unique(out[:, 28:])) == 1
+    assert out[0, 0] != out[0, -1]
+
+
+def test_split_regions_keeps_one_rhythm_and_inactive_parts_whole():
+    from beatlab.regions import split_regions
+
+    rng = np.random.default_rng(1)
+    act = _activity(rng)
+    act[:, :, 6:] = act[:, :, :6]  # both halves beat together
+    labels = np.ones((48, 48), dtype=int)
+    assert set(np.unique(split_regions(labels, act, block_px=4, min_area_px=64))) == {1}
+    act = _activity(rng)
+    out = split_regions(labels, act, block_px=4, min_area_px=64, active=lambda tr: False)
+    assert set(np.unique(out)) == {1}
+    labels[:, :2] = 0
+    assert (split_regions(labels, act, block_px=4, min_area_px=64)[:, :2] == 0).all()

@@ -62,6 +62,9 @@ class RestTemplate:
         Number of frames averaged.
     template_frames : ndarray of int
         Indices of the frames averaged into the template.
+    activity : ndarray (T, by, bx) float32
+        Absolute deviation of every block-averaged, aligned, levelled frame from the rest
+        state (nm), block size ``info["block_factor"]``: where and when the field is active.
     segments : tuple of TemplateSegment
         With a refresh interval: one template per stretch of time, from the resting frames
         inside it (empty when one template serves the whole recording).
@@ -79,6 +82,7 @@ class RestTemplate:
     template_frames: np.ndarray
     method: str
     segments: tuple = ()
+    activity: np.ndarray | None = None
     info: dict = field(default_factory=dict)
 
     def segment_of(self, times_s: np.ndarray) -> np.ndarray:
@@ -416,6 +420,7 @@ def estimate_rest_template(
         template_frames=idx,
         method=method,
         segments=tuple(segments),
+        activity=np.abs(aligned - ref).astype(np.float32),
         info={
             "deviation_floor_nm": floor,
             "rest_deviation_nm": rest_level,

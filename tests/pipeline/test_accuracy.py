@@ -200,3 +200,23 @@ def test_literal_linear_landmarks_are_available_and_more_biased_at_15_fps():
         for name, r in (("cubic", cubic), ("linear", linear))
     }
     assert err["cubic"] < err["linear"]
+
+
+def test_one_sheet_with_two_independent_halves_is_split():
+    # a confluent sheet whose halves beat at their own rates (e.g. a conduction block):
+    # one connected field, two regions
+    common = dict(
+        duration_s=12, fps=30, shape_px=(96, 96), layout="confluent", noise_nm=1.0, rng=3
+    )
+    left = simulate_recording(rate_bpm=40, **common)
+    right = simulate_recording(rate_bpm=65, **common)
+    frames = left.frames.copy()
+    frames[:, :, 48:] = right.frames[:, :, 48:]
+    res = analyze(as_recording(left, frames=frames))
+    assert res.summary["n_regions"] == 2
+    rates = sorted(res.regions["beat_rate_bpm"])
+    truth = sorted(s.truth["summary"]["beat_rate_bpm"] for s in (left, right))
+    for got, want in zip(rates, truth, strict=True):
+        assert got == pytest.approx(want, rel=0.01)
+    # and a sheet beating as one stays one region
+    assert run(left).summary["n_regions"] == 1
