@@ -112,6 +112,18 @@ class OPDSource:
         for i0, block in self.recording.chunks(self.chunk_frames, start=start, stop=stop):
             yield i0, self._convert(block)
 
+    def select_chunks(self, keep: np.ndarray) -> Iterator[tuple[np.ndarray, np.ndarray]]:
+        """Yield ``(frame_indices, opd_frames)`` for the frames where ``keep`` (T,) is true.
+
+        Frames are read chunk by chunk and only the kept ones are converted (for holograms,
+        reconstructed), so a second pass over part of a recording costs only that part.
+        """
+        keep = np.asarray(keep, dtype=bool)
+        for i0, block in self.recording.chunks(self.chunk_frames):
+            idx = np.flatnonzero(keep[i0 : i0 + len(block)])
+            if idx.size:
+                yield i0 + idx, self._convert(block[idx])
+
     def frame(self, index: int) -> np.ndarray:
         """One OPD frame (Y, X) in nm."""
         return self._convert(self.recording.frame(index)[None])[0]

@@ -98,7 +98,7 @@ def _beats_and_summary(
     cfg: dict,
     start_s: float,
     end_s: float,
-) -> tuple[pd.DataFrame, dict, np.ndarray]:
+) -> tuple[pd.DataFrame, dict]:
     b = cfg["beats"]
     r = cfg["rhythm"]
     finite = np.isfinite(trace)
@@ -137,7 +137,7 @@ def _beats_and_summary(
     amp = summary.get("displacement_um")
     summary["trace_noise_um"] = noise
     summary["snr"] = (float(amp) / noise) if (amp is not None and noise > 0) else None
-    return beats, summary, peaks
+    return beats, summary
 
 
 def _rigid_reference(template, cells, rigid: str, noise_nm: float | None):
@@ -148,8 +148,6 @@ def _rigid_reference(template, cells, rigid: str, noise_nm: float | None):
     median flow is noise. Then the median over the cells is used: contraction pulls about a
     centre, so its median vector is close to zero, while drift moves every cell alike.
     """
-    from scipy import ndimage
-
     if rigid in ("auto", "background") and cells.background.sum() > 0.05 * cells.mask.size:
         filled = np.where(np.isfinite(template), template, np.nanmedian(template))
         texture = np.abs(filled - ndimage.gaussian_filter(filled, 2.0))
@@ -364,8 +362,7 @@ def analyze(
     n_tiles = int(tiles.max()) + 1
     grid_shape = (-(-source.shape[0] // tile_px), -(-source.shape[1] // tile_px))
     coverage = tile_means(mask.astype(np.float32), tiles, n_tiles)
-    flat_labels = labels.ravel()
-    label_area = np.bincount(flat_labels, minlength=n_labels + 1).astype(float)
+    label_area = np.bincount(labels.ravel(), minlength=n_labels + 1).astype(float)
     mask_flat = mask.ravel()
 
     disp = np.full(n, np.nan)
@@ -391,25 +388,16 @@ def analyze(
         aligned = shift_image(lev, -shift) if np.hypot(*shift) > 0.02 else lev
         sq = (aligned - template_i) ** 2
         tmean = tile_means(np.where(mask, mag, np.nan), tiles, n_tiles)
-        mflat = mag.ravel()
-        ok = np.isfinite(mflat) & (flat_labels > 0)
-        lsum = np.bincount(flat_labels[ok], weights=mflat[ok], minlength=n_labels + 1)
-        lcnt = np.bincount(flat_labels[ok], minlength=n_labels + 1)
-        sflat = sq.ravel()
-        ok2 = np.isfinite(sflat) & (flat_labels > 0)
-        lsq = np.bincount(flat_labels[ok2], weights=sflat[ok2], minlength=n_labels + 1)
-        lcnt2 = np.bincount(flat_labels[ok2], minlength=n_labels + 1)
-        msq = sflat[mask_flat]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return (
-                value,
-                estimate if rigid == "none" else shift,
-                float(np.nanmean(msq)) if np.isfinite(msq).any() else np.nan,
-                meas.clipped_fraction,
-                tmean,
-                (lsum / lcnt)[1:],
-                (lsq / lcnt2)[1:],
-            )
+        msq = sq.ravel()[mask_flat]
+        return (
+            value,
+            estimate if rigid == "none" else shift,
+            float(np.nanmean(msq)) if np.isfinite(msq).any() else np.nan,
+            meas.clipped_fraction,
+            tmean,
+            tile_means(mag, labels, n_labels + 1)[1:],
+            tile_means(sq, labels, n_labels + 1)[1:],
+        )
 
     def store(i, res):
         (disp[i], shifts[i], ms[i], clipped[i], tile_tr[i], label_tr[:, i], label_ms[:, i]) = res
@@ -423,47 +411,38 @@ def analyze(
     if interpolate:
         rigid_source = "cell median at rest frames, interpolated"
     workers = workers or min(4, os.cpu_count() or 1)
-    chunk = cfg["input"]["chunk_frames"]
     with (
         ThreadPoolExecutor(max_workers=workers) as pool,
         tqdm(total=n, desc="analysing", unit="frame", disable=not progress, leave=False) as bar,
     ):
         done = np.zeros(n, dtype=bool)
-        if interpolate:
-            for j in range(0, rest_idx.size, chunk):
-                batch = rest_idx[j : j + chunk]
-                frames = [source.frame(int(i)) for i in batch]
-                for i, res in zip(
-                    batch,
-                    pool.map(one_frame, frames, [None] * len(batch), frame_ref[batch]),
-                    strict=True,
-                ):
+
+        def run(keep, drifts):
+            for idx, frames in source.select_chunks(keep):
+                args = (
+                    frames,
+                    [None if drifts is None else drifts[i] for i in idx],
+                    frame_ref[idx],
+                )
+                for i, res in zip(idx, pool.map(one_frame, *args), strict=True):
                     store(i, res)
-                bar.update(len(batch))
+                bar.update(len(idx))
+
+        drift_px = None
+        if interpolate:
             done[rest_idx] = True
+            run(done, None)
             drift_px = np.stack(
                 [np.interp(times, times[rest_idx], shifts[rest_idx, c]) for c in (0, 1)], axis=1
             )
-        for i0, block in source.chunks():
-            todo = [k for k in range(len(block)) if not done[i0 + k]]
-            drifts = [drift_px[i0 + k] if interpolate else None for k in todo]
-            for k, res in zip(
-                todo,
-                pool.map(
-                    one_frame, [block[k] for k in todo], drifts, [frame_ref[i0 + k] for k in todo]
-                ),
-                strict=True,
-            ):
-                store(i0 + k, res)
-            bar.update(len(todo))
+        run(~done, drift_px)
     if not np.isfinite(disp).any():
         raise InputError(f"{rec.source}: every frame is NaN inside the cell mask")
 
     # expected mean square of (frame - template) at rest: frame noise plus template noise;
     # frames averaged into the template share its noise (1 - 1/k), others add it (1 + 1/k)
     k = rest.n_frames_used
-    noise_map = np.where(np.isfinite(rest.noise_var), rest.noise_var, np.nan)
-    sigma2 = float(np.nanmean(noise_map[mask])) if k > 1 else 0.0
+    sigma2 = float(np.nanmean(rest.noise_var[mask])) if k > 1 else 0.0
     used = np.zeros(n, dtype=bool)
     used[rest.template_frames] = True
     if rest.segments:
@@ -484,7 +463,7 @@ def analyze(
     )
     start_s = float(times[0])
     end_s = float(times[-1] + 1.0 / rec.fps)
-    beats, summary, _ = _beats_and_summary(disp, times, velocity, opd_change, cfg, start_s, end_s)
+    beats, summary = _beats_and_summary(disp, times, velocity, opd_change, cfg, start_s, end_s)
     drift_um = (shifts - shifts[0]) * px_um
     trace = pd.DataFrame(
         {
@@ -544,7 +523,7 @@ def analyze(
                 window_ms=v_cfg["window_ms"],
                 polyorder=v_cfg["polyorder"],
             )
-            rb, rs, _ = _beats_and_summary(r_disp, times, r_vel, r_opd, cfg, start_s, end_s)
+            rb, rs = _beats_and_summary(r_disp, times, r_vel, r_opd, cfg, start_s, end_s)
             rb.insert(0, "region", r_idx)
             region_beats.append(rb)
             region_summaries.append(rs)

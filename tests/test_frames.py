@@ -49,3 +49,12 @@ def test_wrapped_and_unwrapped_phase_give_the_same_opd():
 def test_phase_needs_a_wavelength():
     with pytest.raises(MetadataError, match="--wavelength-nm"):
         OPDSource(_rec(np.zeros((4, 8, 8), np.float32), "phase", wavelength_nm=None))
+
+
+def test_select_chunks_converts_only_the_kept_frames():
+    opd = _opd_stack()
+    src = OPDSource(_rec(opd / 1000.0, "opd"), opd_scale=1000.0, chunk_frames=4)
+    keep = np.array([True, False, False, True, True, False])
+    got = list(src.select_chunks(keep))
+    assert [list(idx) for idx, _ in got] == [[0, 3], [4]]
+    np.testing.assert_allclose(np.concatenate([f for _, f in got]), opd[keep], rtol=1e-5)
