@@ -129,13 +129,20 @@ def test_summary_regular_rhythm_values():
 
 
 def test_summary_rate_correction_uses_each_beats_own_interval():
-    peaks = np.cumsum([0.5, 0.8, 0.8, 1.0, 1.0])
-    s = summarize_rhythm(make_beats(peaks, duration_s=0.4), start_s=0.0, end_s=6.0)
-    corrected = 0.4 / np.sqrt(np.array([0.8, 0.8, 1.0, 1.0]))
-    assert s["duration_90_bazett_s"] == pytest.approx(np.median(corrected))
-    assert s["duration_90_fridericia_s"] == pytest.approx(
-        np.median(0.4 / np.array([0.8, 0.8, 1.0, 1.0]) ** (1 / 3))
-    )
+    # beats 1-6, each with its own duration; the intervals all differ, so pairing a beat with
+    # its following interval (or none) gives another median
+    peaks = np.cumsum([0.5, 0.64, 1.0, 0.81, 1.21, 0.729])
+    durations = np.array([0.45, 0.30, 0.40, 0.36, 0.44, 0.27])
+    s = summarize_rhythm(make_beats(peaks, duration_s=durations), start_s=0.0, end_s=6.0)
+    # DESIGN.md: each beat's duration_90_s with its own *preceding* IBI, then the median.
+    # Bazett 1920 (P): D / IBI^(1/2), by hand for beats 2-6 (IBI 0.64, 1.0, 0.81, 1.21, 0.729):
+    # 0.30/0.8, 0.40/1.0, 0.36/0.9, 0.44/1.1, 0.27/0.853815 = 0.375, 0.4, 0.4, 0.4, 0.316228
+    # -> median 0.4. With the following IBI it would be 0.45/0.8, 0.30/1.0, 0.40/0.9,
+    # 0.36/1.1, 0.44/0.853815 -> median 0.444444; uncorrected 0.36 (0.38 over all six)
+    assert s["duration_90_bazett_s"] == pytest.approx(0.4, abs=1e-12)
+    # Fridericia 1920 (P): D / IBI^(1/3), IBI^(1/3) = 0.861774, 1.0, 0.932170, 1.065602, 0.9
+    # -> 0.348119, 0.4, 0.386196, 0.412912, 0.3 -> median 0.386196 (following: 0.429106)
+    assert s["duration_90_fridericia_s"] == pytest.approx(0.386196, abs=1e-6)
 
 
 def test_summary_no_beats_one_beat_two_beats():

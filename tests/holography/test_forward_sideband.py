@@ -17,19 +17,27 @@ from beatlab.opd import unwrap_phase_ls
 LAMBDA_NM = 632.8
 
 
-def _smooth_cells(shape, rng, *, count=4, opd_max_nm=250.0, sigma_px=(8.0, 12.0)):
-    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
-    opd = np.zeros(shape)
+def _smooth_cell_model(shape, rng, *, count=4, opd_max_nm=250.0, sigma_px=(8.0, 12.0)):
+    """Round Gaussian cells as a function of (y, x) in pixels: the OPD in nm anywhere."""
+    cells = []
     for _ in range(count):
         cy = rng.uniform(0.25, 0.75) * shape[0]
         cx = rng.uniform(0.25, 0.75) * shape[1]
         s = rng.uniform(*sigma_px)
-        opd += (
-            rng.uniform(0.5, 1.0)
-            * opd_max_nm
-            * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * s * s))
-        )
-    return opd
+        cells.append((cy, cx, s, rng.uniform(0.5, 1.0) * opd_max_nm))
+
+    def opd_at(yy, xx):
+        out = np.zeros(np.broadcast_shapes(np.shape(yy), np.shape(xx)))
+        for cy, cx, s, amp in cells:
+            out += amp * np.exp(-((yy - cy) ** 2 + (xx - cx) ** 2) / (2 * s * s))
+        return out
+
+    return opd_at
+
+
+def _smooth_cells(shape, rng, **kwargs):
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    return _smooth_cell_model(shape, rng, **kwargs)(yy, xx)
 
 
 def test_render_hologram_matches_two_beam_formula():
@@ -108,9 +116,10 @@ def test_locate_sideband_rejects_non_holograms(kind):
 def test_demodulation_noise_free_phase_error(carrier):
     rng = np.random.default_rng(4)
     shape = (128, 128)
-    opd = _smooth_cells(shape, rng)
+    opd_at = _smooth_cell_model(shape, rng)
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
     holo = render_hologram(
-        opd,
+        opd_at(yy, xx),
         wavelength_nm=LAMBDA_NM,
         carrier_cycles_per_px=carrier,
         shot_noise=False,
@@ -126,16 +135,18 @@ def test_demodulation_noise_free_phase_error(carrier):
     k = locate_sideband(holo).carrier_cycles_per_px
     filt = SidebandFilter(shape, k, auto_radius(k))
     phase = np.angle(filt.demodulate(holo) / filt.demodulate(ref))
-    # the side-band used holds exp(+i phase) or, for the twin, exp(-i phase), on the true carrier
+    # the truth is the phase the hologram was rendered from, at the documented centres of the
+    # output pixels (input pixel origin_px + index x scale); the side-band used holds
+    # exp(+i phase), or exp(-i phase) when it is the twin of the rendered carrier
+    ys = filt.origin_px + filt.scale * np.arange(filt.output_shape[0])
+    xs = filt.origin_px + filt.scale * np.arange(filt.output_shape[1])
     sign = np.sign(np.dot(k, carrier))
-    true_carrier = tuple(sign * np.array(carrier))
-    obj = np.exp(sign * 2j * np.pi * opd / LAMBDA_NM)
-    truth = np.angle(
-        filt.band_limit(obj, carrier_cycles_per_px=true_carrier)
-        / filt.band_limit(np.ones(shape), carrier_cycles_per_px=true_carrier)
-    )
+    truth = sign * 2 * np.pi * opd_at(ys[:, None], xs[None, :]) / LAMBDA_NM
+    assert np.abs(truth).max() > np.pi  # the tallest cell wraps in phase
     err = np.angle(np.exp(1j * (phase - truth)))
-    # Cuche, Marquet & Depeursinge 2000 (P, method); CHECKS.md suggests << 0.01 rad, bound ours
+    # Cuche, Marquet & Depeursinge 2000 (P, method); CHECKS.md suggests << 0.01 rad, bound
+    # ours. Against the unfiltered truth: measured 0.0014, 0.0014, 0.0008 rad RMS (the
+    # filter's resolution loss on cells of sigma 8-12 px included)
     assert np.sqrt(np.mean(err**2)) <= 0.005
 
 

@@ -5,22 +5,37 @@ import pytest
 
 from beatlab.errors import BeatlabWarning, ConfigError, InputError, MetadataError
 from beatlab.holography import OffAxisReconstructor, render_hologram, render_reference
-from beatlab.opd import unwrap_phase_ls
 
 LAMBDA_NM = 632.8
 SHAPE = (128, 128)
 PIXEL_UM = 0.3
 
 
-def _cells(rng, shape=SHAPE, *, count=5, opd_max_nm=300.0):
-    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
-    opd = np.zeros(shape)
+def _cell_model(rng, *, count=5, opd_max_nm=300.0, shape=SHAPE):
+    """Gaussian cells as a function of (y, x) in input pixels: the OPD in nm anywhere."""
+    cells = []
     for _ in range(count):
         cy, cx = rng.uniform(0.2, 0.8, 2) * np.array(shape)
         sy, sx = rng.uniform(5.0, 10.0, 2)
         amp = rng.uniform(0.5, 1.0) * opd_max_nm
-        opd += amp * np.exp(-((yy - cy) ** 2 / (2 * sy**2) + (xx - cx) ** 2 / (2 * sx**2)))
-    return opd
+        cells.append((cy, cx, sy, sx, amp))
+
+    def opd_at(yy, xx):
+        out = np.zeros(np.broadcast_shapes(np.shape(yy), np.shape(xx)))
+        for cy, cx, sy, sx, amp in cells:
+            out += amp * np.exp(-((yy - cy) ** 2 / (2 * sy**2) + (xx - cx) ** 2 / (2 * sx**2)))
+        return out
+
+    return opd_at
+
+
+def _on_camera(opd_at, shape=SHAPE):
+    yy, xx = np.mgrid[: shape[0], : shape[1]].astype(float)
+    return opd_at(yy, xx)
+
+
+def _cells(rng, shape=SHAPE, *, count=5, opd_max_nm=300.0):
+    return _on_camera(_cell_model(rng, count=count, opd_max_nm=opd_max_nm, shape=shape), shape)
 
 
 def _curvature(shape=SHAPE, strength=5e-4):
@@ -28,25 +43,25 @@ def _curvature(shape=SHAPE, strength=5e-4):
     return strength * ((yy - 0.4 * shape[0]) ** 2 + (xx - 0.55 * shape[1]) ** 2)
 
 
-def _truth_on_grid(rec, opd, carrier):
-    """OPD the reconstructor should output: the truth band-limited by its window on its grid.
+def _truth_on_grid(rec, opd_at):
+    """The known OPD the hologram was rendered from, at the centres of the OPD pixels.
 
-    Its filter passes the side-band at ``+-carrier`` that holds ``exp(+-i phase)``; the
-    reconstructor then applies its sign.
+    Nothing of the code under test but its documented output geometry: OPD pixel (j, i) lies
+    at input pixel ``output_origin_px + (j, i) x step``, step = output over input pixel size.
+    The truth is not band-limited: the bounds below include the resolution loss of the
+    spatial filter (2.3 nm RMS in the cells on the noise-free hologram of the first test).
     """
-    filt = rec._filter
-    s = float(np.sign(np.dot(filt.carrier_cycles_per_px, carrier)))
-    k = tuple(s * np.array(carrier))
-    field = filt.band_limit(np.exp(s * 2j * np.pi * opd / LAMBDA_NM), carrier_cycles_per_px=k)
-    field = field / filt.band_limit(np.ones(opd.shape), carrier_cycles_per_px=k)
-    phase = rec.sign * unwrap_phase_ls(np.angle(field))
-    phase -= 2 * np.pi * np.round(np.median(phase) / (2 * np.pi))  # background (most pixels) at 0
-    return phase * LAMBDA_NM / (2 * np.pi)
+    step = rec.output_pixel_size_um / rec.input_pixel_size_um
+    ys = rec.output_origin_px + step * np.arange(rec.output_shape[0])
+    xs = rec.output_origin_px + step * np.arange(rec.output_shape[1])
+    return opd_at(ys[:, None], xs[None, :])
 
 
 def test_noisy_hologram_with_curvature_matches_truth_within_3nm():
     rng = np.random.default_rng(11)
-    opd = _cells(rng)
+    opd_at = _cell_model(rng)
+    opd = _on_camera(opd_at)
+    assert opd.max() > LAMBDA_NM / 2  # the tallest cell wraps: the unwrapping is exercised
     optics = {"wavelength_nm": LAMBDA_NM, "aberration_rad": _curvature(), "read_noise_counts": 3.0}
     holo = render_hologram(opd, rng=rng, **optics)
     ref = render_reference(SHAPE, rng=rng, **optics)
@@ -56,26 +71,31 @@ def test_noisy_hologram_with_curvature_matches_truth_within_3nm():
     out = next(rec.opd_frames([holo]))
     assert out.dtype == np.float32 and out.shape == rec.output_shape
     assert rec.output_pixel_size_um == pytest.approx(PIXEL_UM * rec._filter.scale)
-    truth = _truth_on_grid(rec, opd, (0.23, 0.17))
+    truth = _truth_on_grid(rec, opd_at)
     cells = truth > 20.0
     rms = np.sqrt(np.mean((out - truth)[cells] ** 2))
-    # bound from the issue (ours); invented ground truth, shot + read noise, 12 bit
+    # the known OPD the hologram was rendered from (invented ground truth, shot + read noise,
+    # 12 bit); bound from the issue (ours): measured 2.49 nm, of which 2.3 nm is the filter's
+    # resolution loss on these 1.5-3 um cells
     assert rms <= 3.0
     assert abs(np.median((out - truth)[~cells])) < 1.0
 
 
 def test_without_reference_polynomial_levelling():
     rng = np.random.default_rng(12)
-    opd = _cells(rng)
-    holo = render_hologram(opd, wavelength_nm=LAMBDA_NM, aberration_rad=_curvature(), rng=rng)
+    opd_at = _cell_model(rng)
+    holo = render_hologram(
+        _on_camera(opd_at), wavelength_nm=LAMBDA_NM, aberration_rad=_curvature(), rng=rng
+    )
     rec = OffAxisReconstructor.fit(holo, wavelength_nm=LAMBDA_NM, pixel_size_um=PIXEL_UM)
     assert not rec.uses_reference
     out = next(rec.opd_frames([holo]))
-    truth = _truth_on_grid(rec, opd, (0.23, 0.17))
+    truth = _truth_on_grid(rec, opd_at)
     inner = np.zeros(out.shape, dtype=bool)
     inner[2:-2, 2:-2] = True
     cells = (truth > 20.0) & inner
-    # looser bound: the order-2 fit absorbs part of the cells' tails (ours)
+    # the known OPD (invented ground truth); looser bound: the order-2 fit absorbs part of the
+    # cells' tails (ours; measured 5.85 nm)
     assert np.sqrt(np.mean((out - truth)[cells] ** 2)) <= 8.0
     assert rec.sign == 1
 
@@ -83,7 +103,8 @@ def test_without_reference_polynomial_levelling():
 @pytest.mark.parametrize("carrier", [(0.23, 0.17), (-0.23, 0.17), (0.22, -0.18), (0.0, 0.3)])
 def test_any_carrier_either_sideband(carrier):
     rng = np.random.default_rng(13)
-    opd = _cells(rng)
+    opd_at = _cell_model(rng)
+    opd = _on_camera(opd_at)
     optics = {
         "wavelength_nm": LAMBDA_NM,
         "carrier_cycles_per_px": carrier,
@@ -101,7 +122,7 @@ def test_any_carrier_either_sideband(carrier):
     assert results["+1"][0] == 1 and results["-1"][0] == -1
     np.testing.assert_allclose(results["+1"][1], -results["-1"][1], atol=0.05)
     sign_auto, auto = results["auto"]
-    cells = np.abs(_truth_on_grid(rec, opd, carrier)) > 20.0
+    cells = _truth_on_grid(rec, opd_at) > 20.0
     assert np.mean(auto[cells]) > 50.0  # automatic choice: cells positive
     np.testing.assert_allclose(auto, results["+1" if sign_auto > 0 else "-1"][1], atol=1e-6)
 
@@ -137,13 +158,19 @@ def test_vibrating_reference_stack_equals_one_clean_reference():
 
 def test_time_series_across_wrap_boundaries_has_no_jumps():
     rng = np.random.default_rng(15)
-    # more than a wavelength (wraps in space), smooth enough for the window's pass band
-    yy, xx = np.mgrid[: SHAPE[0], : SHAPE[1]].astype(float)
-    r = np.hypot(yy - 60, xx - 66) / 40.0
-    base = np.where(r < 1, 1000.0 * np.cos(0.5 * np.pi * np.clip(r, 0, 1)) ** 2, 0.0)
+    # more than a wavelength (wraps in space), smooth enough for the window's pass band: its
+    # steepest slope (30 nm/px at the largest scale) is 0.048 cycles/px of fringe, half the
+    # window radius (0.096). (A 40 px, 1000 nm bump, 49 nm/px, reads 59 nm off its own OPD.)
+
+    def base_at(yy, xx):
+        r = np.hypot(yy - 60, xx - 66) / 56.0
+        return np.where(r < 1, 800.0 * np.cos(0.5 * np.pi * np.clip(r, 0, 1)) ** 2, 0.0)
+
+    base = _on_camera(base_at)
     optics = {"wavelength_nm": LAMBDA_NM, "read_noise_counts": 2.0}
     ref = render_reference(SHAPE, rng=rng, **optics)
-    scales = 1.0 + 0.25 * np.sin(np.linspace(0, 4 * np.pi, 24))  # changes of up to 225 nm
+    # frame-to-frame changes of up to 155 nm (< half a wavelength), 560 nm in all
+    scales = 1.0 + 0.35 * np.sin(np.linspace(0, 4 * np.pi, 24))
     vibration = rng.uniform(-np.pi, np.pi, scales.size)
 
     def frames():
@@ -154,12 +181,13 @@ def test_time_series_across_wrap_boundaries_has_no_jumps():
     rec = OffAxisReconstructor.fit(
         first, wavelength_nm=LAMBDA_NM, pixel_size_um=PIXEL_UM, reference=ref
     )
-    truth = _truth_on_grid(rec, base, (0.23, 0.17))
+    truth = _truth_on_grid(rec, base_at)
     peak = np.unravel_index(np.argmax(truth), truth.shape)
     series = np.array([f[peak] for f in rec.opd_frames(frames())])
-    expected = np.array([_truth_on_grid(rec, base * s, (0.23, 0.17))[peak] for s in scales])
+    expected = truth[peak] * scales
     assert truth[peak] > 1.2 * LAMBDA_NM and np.ptp(expected) > 0.8 * LAMBDA_NM
-    # invented ground truth: no 2 pi (632.8 nm) jumps, each frame on its band-limited truth
+    # invented ground truth: no 2 pi (632.8 nm) jumps, each frame on the OPD it was rendered
+    # from (measured within 1.2 nm; ours)
     assert np.max(np.abs(np.diff(series))) < 0.5 * LAMBDA_NM
     assert np.max(np.abs(series - expected)) < 5.0
 
