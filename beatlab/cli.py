@@ -231,10 +231,10 @@ def _cmd_analyze(args) -> int:
 
 
 def _cmd_reconstruct(args) -> int:
-    from beatlab.config import load_config
     from beatlab.holography import reconstruct_file
+    from beatlab.settings import load_settings
 
-    cfg = load_config(args.config)
+    settings = load_settings(args.config)
     out = reconstruct_file(
         args.path,
         args.out,
@@ -242,7 +242,7 @@ def _cmd_reconstruct(args) -> int:
         pixel_size_um=args.pixel_size_um,
         fps=args.fps,
         reference=args.reference,
-        options=cfg["holography"],
+        holography=settings.holography,
         progress=sys.stderr.isatty(),
     )
     print(f"wrote {out}")
