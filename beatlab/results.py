@@ -118,9 +118,9 @@ def _typed(table: pd.DataFrame, name: str) -> pd.DataFrame:
     out = table.copy()
     for column in out.columns:
         kind = kinds.get(column)
-        if kind == "bool":
+        if kind in ("bool", "boolean"):
             values = out[column].map({True: True, False: False, "True": True, "False": False})
-            out[column] = values.astype("boolean") if values.isna().any() else values.astype(bool)
+            out[column] = values.astype("boolean" if kind == "boolean" else bool)
         elif kind == "int" and not out[column].isna().any():
             out[column] = out[column].astype(np.int64)
         elif kind == "float" and out[column].dtype == object:

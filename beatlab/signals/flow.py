@@ -426,7 +426,7 @@ def mean_displacement_um(
     if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
         raise InputError(
             f"pixel_size_um must be a positive number, got {pixel_size_um!r}; "
-            "pass --pixel-size-um or add PhysicalSizeX"
+            "pass pixel_size_um=UM or add PhysicalSizeX"
         )
     vectors = fl[m].astype(np.float64)
     if rigid_shift is not None:
@@ -562,7 +562,7 @@ class FlowTracker:
         if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
             raise InputError(
                 f"pixel_size_um must be a positive number, got {pixel_size_um!r}; "
-                "pass --pixel-size-um or add PhysicalSizeX"
+                "pass pixel_size_um=UM or add PhysicalSizeX"
             )
         finite = np.isfinite(template)
         if not (mask_arr & finite).any():
