@@ -14,7 +14,9 @@ from beatlab.errors import (
     MetadataError,
 )
 from beatlab.io import Recording, open_recording
-from beatlab.pipeline import Analysis, analyze
+from beatlab.pipeline import analyze
+from beatlab.results import Analysis, read_analysis
+from beatlab.settings import Settings, load_settings
 
 __all__ = [
     "Analysis",
@@ -25,9 +27,12 @@ __all__ = [
     "InputError",
     "MetadataError",
     "Recording",
+    "Settings",
     "__version__",
     "analyze",
     "default_config",
     "load_config",
+    "load_settings",
     "open_recording",
+    "read_analysis",
 ]

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import re
 import sys
 import warnings
 from pathlib import Path
@@ -231,10 +232,10 @@ def _cmd_analyze(args) -> int:
 
 
 def _cmd_reconstruct(args) -> int:
-    from beatlab.config import load_config
     from beatlab.holography import reconstruct_file
+    from beatlab.settings import load_settings
 
-    cfg = load_config(args.config)
+    settings = load_settings(args.config)
     out = reconstruct_file(
         args.path,
         args.out,
@@ -242,7 +243,7 @@ def _cmd_reconstruct(args) -> int:
         pixel_size_um=args.pixel_size_um,
         fps=args.fps,
         reference=args.reference,
-        options=cfg["holography"],
+        holography=settings.holography,
         progress=sys.stderr.isatty(),
     )
     print(f"wrote {out}")
@@ -285,6 +286,24 @@ def _cmd_simulate(args) -> int:
 _COMMANDS = {"analyze": _cmd_analyze, "reconstruct": _cmd_reconstruct, "simulate": _cmd_simulate}
 
 
+#: Library messages name parameters (``pass fps=HZ``); on the command line they are flags.
+_FLAGS = {
+    "fps": "--fps",
+    "pixel_size_um": "--pixel-size-um",
+    "wavelength_nm": "--wavelength-nm",
+    "kind": "--kind",
+    "config": "--config",
+    "regions": "--regions",
+    "reference": "--reference",
+}
+_PARAMETER = re.compile(r"\b(" + "|".join(_FLAGS) + r")=")
+
+
+def as_flags(message: str) -> str:
+    """Rewrite ``name=VALUE`` parameter hints of a library message as command-line flags."""
+    return _PARAMETER.sub(lambda m: _FLAGS[m.group(1)] + " ", message)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the ``beatlab`` command; return the exit code."""
     parser = build_parser()
@@ -295,7 +314,7 @@ def main(argv: list[str] | None = None) -> int:
     )
 
     def show_warning(message, category, filename, lineno, file=None, line=None):
-        print(f"beatlab: warning: {message}", file=sys.stderr)
+        print(f"beatlab: warning: {as_flags(str(message))}", file=sys.stderr)
 
     if not args.debug:
         warnings.showwarning = show_warning
@@ -305,12 +324,12 @@ def main(argv: list[str] | None = None) -> int:
     except (InputError, ConfigError) as exc:
         if args.debug:
             raise
-        print(f"beatlab: error: {exc}", file=sys.stderr)
+        print(f"beatlab: error: {as_flags(str(exc))}", file=sys.stderr)
         return EXIT_USAGE
     except (AnalysisError, BeatlabError) as exc:
         if args.debug:
             raise
-        print(f"beatlab: error: {exc}", file=sys.stderr)
+        print(f"beatlab: error: {as_flags(str(exc))}", file=sys.stderr)
         return EXIT_FAILURE
     except KeyboardInterrupt:
         print("beatlab: interrupted", file=sys.stderr)

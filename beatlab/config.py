@@ -317,7 +317,7 @@ def load_config(source: str | os.PathLike | dict | None = None) -> dict:
         text = path.read_text(encoding="utf-8")
     except OSError as exc:
         raise ConfigError(
-            f"cannot read config file {path}: {exc.strerror}; check --config"
+            f"cannot read config file {path}: {exc.strerror}; check config=FILE"
         ) from exc
     try:
         data = tomllib.loads(text)

@@ -13,6 +13,7 @@ import numpy as np
 from beatlab.errors import InputError
 from beatlab.io.recording import Recording
 from beatlab.opd import phase_to_opd, unwrap_in_time, unwrap_phase_ls
+from beatlab.settings import HolographySettings, load_settings
 
 __all__ = ["OPDSource"]
 
@@ -30,8 +31,9 @@ class OPDSource:
         Stored phase values are multiplied by this to give radians (kind ``phase``).
     reference : ndarray, optional
         Sample-free hologram frame(s) (R, Y, X) for kind ``hologram``.
-    holography : dict, optional
-        Options for :class:`beatlab.holography.OffAxisReconstructor.fit`.
+    holography : HolographySettings, optional
+        The ``[holography]`` settings for :meth:`OffAxisReconstructor.fit` (default: the
+        defaults).
     chunk_frames : int
         Frames per chunk.
 
@@ -50,7 +52,7 @@ class OPDSource:
         opd_scale: float = 1.0,
         phase_scale: float = 1.0,
         reference: np.ndarray | None = None,
-        holography: dict | None = None,
+        holography: HolographySettings | None = None,
         chunk_frames: int = 64,
     ):
         self.recording = recording
@@ -75,7 +77,7 @@ class OPDSource:
                 wavelength_nm=recording.wavelength_nm,
                 pixel_size_um=recording.pixel_size_um,
                 reference=reference,
-                **(holography or {}),
+                **(holography or load_settings().holography).fit_options(),
             )
             self.pixel_size_um = float(self._reconstructor.output_pixel_size_um)
             self.shape = tuple(self._reconstructor.output_shape)

@@ -33,7 +33,7 @@ def _check_wavelength(wavelength_nm: float) -> float:
     if not (np.isfinite(wavelength_nm) and wavelength_nm > 0):
         raise InputError(
             f"wavelength_nm must be a positive number of nanometres, got {wavelength_nm!r}; "
-            "pass --wavelength-nm NM"
+            "pass wavelength_nm=NM"
         )
     return wavelength_nm
 

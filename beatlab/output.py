@@ -1,4 +1,4 @@
-"""Write an :class:`~beatlab.pipeline.Analysis` as the files of the output contract."""
+"""Write an :class:`~beatlab.results.Analysis` as the files of the output contract."""
 
 from __future__ import annotations
 
@@ -7,7 +7,9 @@ from pathlib import Path
 
 import numpy as np
 
+from beatlab.errors import AnalysisError
 from beatlab.io.writers import atomic_path, write_json
+from beatlab.schema import TABLES
 
 __all__ = ["CAUTION", "save_analysis"]
 
@@ -20,9 +22,17 @@ CAUTION = (
 )
 
 
-def _write_csv(df, path: Path) -> Path:
+def _write_table(df, out: Path, name: str) -> Path:
+    """Write one table of the schema; its columns must be the schema's, in order."""
+    table = TABLES[name]
+    if tuple(df.columns) != table.names():
+        raise AnalysisError(
+            f"{table.file}: columns {list(df.columns)} differ from the schema "
+            f"{list(table.names())}; this is a bug in beatlab, please report it"
+        )
+    path = out / table.file
     with atomic_path(path) as tmp:
-        df.to_csv(tmp, index=False, float_format="%.6g")
+        df.to_csv(tmp, index=False)  # full precision: read_analysis gives the same numbers
     return path
 
 
@@ -48,15 +58,9 @@ def save_analysis(
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     paths: dict[str, Path] = {}
-    summary = dict(analysis.summary)
-    summary["caution"] = CAUTION
-    paths["summary"] = write_json(out / "summary.json", summary)
-    paths["beats"] = _write_csv(analysis.beats, out / "beats.csv")
-    paths["trace"] = _write_csv(analysis.trace, out / "trace.csv")
-    paths["average_beat"] = _write_csv(analysis.average_beat, out / "average_beat.csv")
-    paths["regions"] = _write_csv(analysis.regions, out / "regions.csv")
-    paths["region_beats"] = _write_csv(analysis.region_beats, out / "region_beats.csv")
-    paths["region_traces"] = _write_csv(analysis.region_traces, out / "region_traces.csv")
+    paths["summary"] = write_json(out / "summary.json", {**analysis.summary, "caution": CAUTION})
+    for name in TABLES:
+        paths[name] = _write_table(getattr(analysis, name), out, name)
     arrays = {k: np.asarray(v) for k, v in analysis.maps.items() if isinstance(v, np.ndarray)}
     arrays["mask"] = analysis.mask
     arrays["template_nm"] = analysis.template

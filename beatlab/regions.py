@@ -179,7 +179,7 @@ def find_regions(
     if not (math.isfinite(pixel_size_um) and pixel_size_um > 0):
         raise InputError(
             f"pixel_size_um must be a positive number of um, got {pixel_size_um!r}; "
-            "pass --pixel-size-um UM"
+            "pass pixel_size_um=UM"
         )
     min_area_um2 = float(min_area_um2)
     if not (math.isfinite(min_area_um2) and min_area_um2 >= 0):

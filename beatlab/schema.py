@@ -72,7 +72,8 @@ class Field:
     unit : str
         One of :data:`UNITS`: ``"1"`` is a dimensionless ratio, fraction or index.
     dtype : str
-        ``"float"``, ``"int"``, ``"bool"``, ``"str"``, ``"list"`` or ``"dict"``.
+        ``"float"``, ``"int"``, ``"bool"``, ``"boolean"`` (true, false or empty),
+        ``"str"``, ``"list"`` or ``"dict"``.
     meaning : str
         One line: the exact definition.
     """
@@ -174,7 +175,7 @@ BEAT_FIELDS = (
        "empty if none is negative."),
     _f("secondary_peak", "bool", "bool",
        "True when the beat has an EAD-like secondary peak (see Secondary peak)."),
-    _f("irregular", "bool", "bool",
+    _f("irregular", "bool", "boolean",
        "True when ibi_s differs from the median ibi_s of the trace's beats by more than "
        "beats.irregular_tolerance [0.25] x that median; empty for the first beat."),
     _f("baseline_um", "um", "float", "Baseline of the beat on the displacement trace (see "

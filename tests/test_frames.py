@@ -47,7 +47,7 @@ def test_wrapped_and_unwrapped_phase_give_the_same_opd():
 
 
 def test_phase_needs_a_wavelength():
-    with pytest.raises(MetadataError, match="--wavelength-nm"):
+    with pytest.raises(MetadataError, match="wavelength_nm=NM"):
         OPDSource(_rec(np.zeros((4, 8, 8), np.float32), "phase", wavelength_nm=None))
 
 

@@ -24,7 +24,7 @@ def test_phase_to_opd_definition():
 
 @pytest.mark.parametrize("bad", [0.0, -1.0, np.nan])
 def test_wavelength_must_be_positive(bad):
-    with pytest.raises(InputError, match="--wavelength-nm"):
+    with pytest.raises(InputError, match="wavelength_nm=NM"):
         phase_to_opd(np.zeros(3), bad)
 
 

@@ -132,7 +132,7 @@ def test_every_field_is_declared_completely():
             "ROW",
         )
     }
-    dtypes = {"float", "int", "bool", "str", "list", "dict"}
+    dtypes = {"float", "int", "bool", "boolean", "str", "list", "dict"}
     for group, f in _all_fields():
         assert f.unit in schema.UNITS, f"{group}: {f.name} has unknown unit {f.unit!r}"
         assert f.dtype in dtypes, f"{group}: {f.name} has unknown dtype {f.dtype!r}"

@@ -64,7 +64,9 @@ def average_beat(times_s, traces, onsets_s, *, pre_s=0.1, post_s=None):
     pre_s = check_non_negative(pre_s, "pre_s")
     columns = ["time_s", "n_beats"] + [f"{n}_{s}" for n in arrays for s in ("mean", "sd")]
     if onsets.size == 0 or times.size < 2:
-        return pd.DataFrame({c: pd.Series(dtype=float) for c in columns})
+        return pd.DataFrame(
+            {c: pd.Series(dtype=np.int64 if c == "n_beats" else float) for c in columns}
+        )
     if post_s is None:
         post_s = (
             float(np.median(np.diff(onsets))) if onsets.size > 1 else float(times[-1] - onsets[0])

@@ -8,7 +8,7 @@ from beatlab.holography.background import (
     phase_offset,
 )
 from beatlab.holography.demodulate import SidebandFilter, auto_radius, radius_from_na
-from beatlab.holography.files import load_reference, reconstruct_file, reconstructor_options
+from beatlab.holography.files import load_reference, reconstruct_file
 from beatlab.holography.forward import render_hologram, render_reference
 from beatlab.holography.reconstruct import OffAxisReconstructor
 from beatlab.holography.refocus import (
@@ -37,7 +37,6 @@ __all__ = [
     "propagate_angular_spectrum",
     "radius_from_na",
     "reconstruct_file",
-    "reconstructor_options",
     "render_hologram",
     "render_reference",
 ]

@@ -8,20 +8,9 @@ from pathlib import Path
 import numpy as np
 
 from beatlab.errors import InputError
+from beatlab.settings import HolographySettings, load_settings
 
-__all__ = ["load_reference", "reconstruct_file", "reconstructor_options"]
-
-
-def reconstructor_options(holography: dict) -> dict:
-    """Map the ``[holography]`` configuration section to :meth:`OffAxisReconstructor.fit`."""
-    return {
-        "sideband": holography["sideband"],
-        "radius": holography["radius"] if holography["radius"] > 0 else "auto",
-        "na": holography["na"] if holography["na"] > 0 else None,
-        "n_medium": holography["n_medium"],
-        "refocus_um": holography["refocus_um"] or None,
-        "autofocus": bool(holography["autofocus"]),
-    }
+__all__ = ["load_reference", "reconstruct_file"]
 
 
 def load_reference(path: str | os.PathLike) -> np.ndarray:
@@ -41,7 +30,7 @@ def reconstruct_file(
     pixel_size_um: float | None = None,
     fps: float | None = None,
     reference: str | os.PathLike | np.ndarray | None = None,
-    options: dict | None = None,
+    holography: HolographySettings | None = None,
     progress: bool = False,
 ) -> Path:
     """Reconstruct raw off-axis holograms into float32 OPD (nm) frames in an OME-TIFF.
@@ -60,8 +49,8 @@ def reconstruct_file(
         Frame rate in Hz (overrides the file).
     reference : path-like or ndarray (R, Y, X), optional
         Sample-free hologram frame(s).
-    options : dict, optional
-        The ``[holography]`` configuration section.
+    holography : HolographySettings, optional
+        The ``[holography]`` settings (default: the defaults of ``configs/default.toml``).
     progress : bool
         Show a progress bar.
 
@@ -75,7 +64,6 @@ def reconstruct_file(
     MetadataError
         When the frame rate or the pixel size is unknown (naming the flag).
     """
-    from beatlab.config import default_config
     from beatlab.holography.reconstruct import OffAxisReconstructor
     from beatlab.io import open_recording, write_ome_tiff
 
@@ -90,7 +78,7 @@ def reconstruct_file(
             f"reference frames {reference.shape[-2:]} differ from the holograms "
             f"{rec.shape}; pass sample-free frames from the same camera set-up"
         )
-    opts = reconstructor_options(options or default_config()["holography"])
+    opts = (holography or load_settings().holography).fit_options()
     recon = OffAxisReconstructor.fit(
         rec.frame(0),
         wavelength_nm=rec.wavelength_nm,

@@ -215,8 +215,8 @@ class OffAxisReconstructor:
         Introduction to Fourier Optics); least-squares unwrapping of the first frame
         (Ghiglia & Romero 1994, J Opt Soc Am A 11:107).
         """
-        wavelength_nm = _positive("wavelength_nm", wavelength_nm, "--wavelength-nm NM")
-        pixel_size_um = _positive("pixel_size_um", pixel_size_um, "--pixel-size-um UM")
+        wavelength_nm = _positive("wavelength_nm", wavelength_nm, "wavelength_nm=NM")
+        pixel_size_um = _positive("pixel_size_um", pixel_size_um, "pixel_size_um=UM")
         if sideband not in _SIDEBANDS:
             raise ConfigError(f"sideband: got {sideband!r}; choose one of {sorted(_SIDEBANDS)}")
         if focus_metric not in FOCUS_METRICS:

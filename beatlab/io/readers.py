@@ -54,7 +54,7 @@ def _length_um(value, unit) -> float | None:
     unit = "um" if unit is None else str(unit).strip()
     factor = _LENGTH_TO_UM.get(unit, _LENGTH_TO_UM.get(unit.lower()))
     if factor is None:
-        raise MetadataError(f"unknown length unit {unit!r} in the file; pass --pixel-size-um UM")
+        raise MetadataError(f"unknown length unit {unit!r} in the file; pass pixel_size_um=UM")
     return float(value) * factor
 
 
@@ -62,7 +62,7 @@ def _time_s(value, unit) -> float:
     unit = "s" if unit is None else str(unit).strip()
     factor = _TIME_TO_S.get(unit)
     if factor is None:
-        raise MetadataError(f"unknown time unit {unit!r} in the file; pass --fps HZ")
+        raise MetadataError(f"unknown time unit {unit!r} in the file; pass fps=HZ")
     return float(value) * factor
 
 
@@ -239,8 +239,8 @@ def _timing(n_frames: int, fps_flag, found: dict, source: str):
     if fps_flag is not None:
         fps = float(fps_flag)
         if not (math.isfinite(fps) and fps > 0):
-            raise MetadataError(f"--fps must be a positive frame rate in Hz, got {fps_flag!r}")
-        found["fps_source"] = "flag --fps"
+            raise MetadataError(f"fps must be a positive frame rate in Hz, got {fps_flag!r}; pass fps=HZ")
+        found["fps_source"] = "given (fps)"
         return fps, np.arange(n_frames) / fps, False
     times = found.get("plane_times_s")
     if times is not None and len(times) == n_frames and n_frames > 1:
@@ -472,23 +472,23 @@ def open_recording(
         kind = found.get("kind", "opd")
         found["kind_source"] = "file" if "kind" in found else "default (opd)"
     else:
-        found["kind_source"] = "flag --kind"
+        found["kind_source"] = "given (kind)"
     if kind == "wrapped_phase":
         kind = "phase"
     if kind not in KINDS:
-        raise InputError(f"unknown kind {kind!r}; pass --kind with one of {', '.join(KINDS)}")
+        raise InputError(f"unknown kind {kind!r}; pass kind= one of {', '.join(KINDS)}")
     n = source.n_frames
     rate, times, uneven = _timing(n, fps, found, name)
     if pixel_size_um is not None:
         if not (math.isfinite(float(pixel_size_um)) and float(pixel_size_um) > 0):
-            raise MetadataError(f"--pixel-size-um must be positive, got {pixel_size_um!r}")
+            raise MetadataError(f"pixel_size_um must be positive, got {pixel_size_um!r}; pass pixel_size_um=UM")
         found["pixel_size_um"] = float(pixel_size_um)
-        found["pixel_size_source"] = "flag --pixel-size-um"
+        found["pixel_size_source"] = "given (pixel_size_um)"
     if wavelength_nm is not None:
         if not (math.isfinite(float(wavelength_nm)) and float(wavelength_nm) > 0):
-            raise MetadataError(f"--wavelength-nm must be positive, got {wavelength_nm!r}")
+            raise MetadataError(f"wavelength_nm must be positive, got {wavelength_nm!r}; pass wavelength_nm=NM")
         found["wavelength_nm"] = float(wavelength_nm)
-        found["wavelength_source"] = "flag --wavelength-nm"
+        found["wavelength_source"] = "given (wavelength_nm)"
     if found.get("pixel_size_y_um") is not None and pixel_size_um is None:
         warnings.warn(
             f"{name}: pixels are not square ({found['pixel_size_um']:.4g} x "

@@ -16,9 +16,9 @@ __all__ = ["KINDS", "FrameSource", "Recording"]
 KINDS = ("opd", "phase", "hologram")
 
 _FLAGS = {
-    "fps": ("--fps HZ", "frame rate"),
-    "pixel_size_um": ("--pixel-size-um UM", "sample-plane pixel size"),
-    "wavelength_nm": ("--wavelength-nm NM", "wavelength"),
+    "fps": ("fps=HZ", "frame rate"),
+    "pixel_size_um": ("pixel_size_um=UM", "sample-plane pixel size"),
+    "wavelength_nm": ("wavelength_nm=NM", "wavelength"),
 }
 
 
@@ -97,7 +97,7 @@ class Recording:
         return bool(self.metadata.get("uneven_timing", False))
 
     def require(self, *names: str) -> None:
-        """Raise :class:`MetadataError` naming the flag to pass for each missing value."""
+        """Raise :class:`MetadataError` naming the parameter to pass for each missing value."""
         for name in names:
             if getattr(self, name) is None:
                 flag, what = _FLAGS[name]

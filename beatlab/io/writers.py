@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import tifffile
 
-__all__ = ["atomic_path", "write_json", "write_ome_tiff"]
+__all__ = ["atomic_path", "json_ready", "write_json", "write_ome_tiff"]
 
 #: Namespace of the OME MapAnnotation that carries beatlab's own metadata.
 OME_NAMESPACE = "beatlab/recording"
@@ -39,14 +39,14 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
             tmp.unlink()
 
 
-def _clean_json(value):
+def json_ready(value):
     """Make ``value`` JSON-ready: numpy scalars to Python, NaN/inf to None."""
     if isinstance(value, dict):
-        return {str(k): _clean_json(v) for k, v in value.items()}
+        return {str(k): json_ready(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_clean_json(v) for v in value]
+        return [json_ready(v) for v in value]
     if isinstance(value, np.ndarray):
-        return [_clean_json(v) for v in value.tolist()]
+        return [json_ready(v) for v in value.tolist()]
     if isinstance(value, (np.bool_, bool)):
         return bool(value)
     if isinstance(value, (np.integer,)):
@@ -63,7 +63,7 @@ def write_json(path: str | os.PathLike, data: dict) -> Path:
     """Write ``data`` as indented JSON atomically; NaN and inf become ``null``."""
     path = Path(path)
     with atomic_path(path) as tmp:
-        tmp.write_text(json.dumps(_clean_json(data), indent=2, allow_nan=False) + "\n")
+        tmp.write_text(json.dumps(json_ready(data), indent=2, allow_nan=False) + "\n")
     return path
 
 

@@ -2,7 +2,7 @@
 
 from beatlab.signals.flow import FLOW_METHODS, FlowTracker, compute_flow
 from beatlab.signals.level import PlaneLeveller
-from beatlab.signals.maps import build_maps, tile_labels, tile_means
+from beatlab.signals.maps import tile_labels, tile_means
 from beatlab.signals.mask import CellMask, make_cell_mask
 from beatlab.signals.rest import RestTemplate, estimate_rest_template
 from beatlab.signals.traces import opd_change_trace, velocity_trace
@@ -13,7 +13,6 @@ __all__ = [
     "FlowTracker",
     "PlaneLeveller",
     "RestTemplate",
-    "build_maps",
     "compute_flow",
     "estimate_rest_template",
     "make_cell_mask",

@@ -101,9 +101,10 @@ class FlowMeasurement(NamedTuple):
     """Result of :meth:`FlowTracker.measure` for one frame."""
 
     displacement_um: float
-    rigid_shift_px: np.ndarray  # (2,) float64, (dx, dy)
+    rigid_shift_px: np.ndarray  # (2,) float64, (dx, dy): the shift removed
     flow_px: np.ndarray  # (Y, X, 2) float32, rigid shift removed
     clipped_fraction: float
+    estimated_shift_px: np.ndarray | None = None  # (2,) the frame's own rigid-shift estimate
 
 
 def flow_scale(
@@ -111,6 +112,7 @@ def flow_scale(
     *,
     mask: np.ndarray | None = None,
     percentiles: tuple[float, float] = (0.5, 99.5),
+    margin_nm: float = 0.0,
 ) -> tuple[float, float]:
     """Fixed 8-bit mapping of a recording: the OPD values mapped to grey 0 and 255.
 
@@ -122,12 +124,17 @@ def flow_scale(
         Pixels whose values set the scale (default: every finite pixel).
     percentiles : (float, float)
         Lower and upper percentiles (0-100) of the template mapped to 0 and 255.
+    margin_nm : float
+        Widen the range by this much on both sides (nm, >= 0). The template is an average,
+        far smoother than one frame: a margin of a few frame-noise SDs keeps the noise of
+        every frame from clipping where a percentile falls on a flat background.
 
     Returns
     -------
     (lo_nm, hi_nm) : tuple of float
         OPD mapped to grey 0 and to grey 255. For a template without contrast (hi == lo) the
-        range is widened to value -/+ 1 nm, so the image maps to mid-grey and the flow is 0.
+        range is widened to value -/+ max(1 nm, margin), so the image maps to mid-grey and the
+        flow is 0.
 
     Raises
     ------
@@ -156,10 +163,14 @@ def flow_scale(
             "template_nm has no finite pixel inside the mask; pass a template with data "
             "or a mask that covers finite pixels"
         )
+    margin = float(margin_nm)
+    if not (np.isfinite(margin) and margin >= 0):
+        raise InputError(f"margin_nm must be a finite number >= 0, got {margin_nm!r}")
     lo, hi = np.percentile(template[valid].astype(np.float64), [lo_p, hi_p])
     if not hi > lo:
-        return float(lo) - 1.0, float(lo) + 1.0
-    return float(lo), float(hi)
+        hi = lo = float(lo)
+        margin = max(margin, 1.0)
+    return float(lo) - margin, float(hi) + margin
 
 
 def _scale_to_grey(image_nm: np.ndarray, scale: tuple[float, float]) -> np.ndarray:
@@ -415,7 +426,7 @@ def mean_displacement_um(
     if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
         raise InputError(
             f"pixel_size_um must be a positive number, got {pixel_size_um!r}; "
-            "pass --pixel-size-um or add PhysicalSizeX"
+            "pass pixel_size_um=UM or add PhysicalSizeX"
         )
     vectors = fl[m].astype(np.float64)
     if rigid_shift is not None:
@@ -551,7 +562,7 @@ class FlowTracker:
         if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
             raise InputError(
                 f"pixel_size_um must be a positive number, got {pixel_size_um!r}; "
-                "pass --pixel-size-um or add PhysicalSizeX"
+                "pass pixel_size_um=UM or add PhysicalSizeX"
             )
         finite = np.isfinite(template)
         if not (mask_arr & finite).any():
@@ -580,20 +591,27 @@ class FlowTracker:
             _scale_to_grey(filled, self.scale)[self._region], window_px=self.window_px
         )
 
-    def measure(self, frame_nm: np.ndarray) -> FlowMeasurement:
+    def measure(
+        self, frame_nm: np.ndarray, *, rigid_shift_px: np.ndarray | None = None
+    ) -> FlowMeasurement:
         """Displacement, rigid shift, shift-free flow and clipped fraction of one frame.
 
         Parameters
         ----------
         frame_nm : ndarray, shape (Y, X)
             OPD frame, nm, levelled like the template.
+        rigid_shift_px : array-like, shape (2,), optional
+            (dx, dy) px to remove instead of the frame's own estimate, e.g. a drift
+            interpolated in time from resting frames, or zeros to remove nothing.
 
         Returns
         -------
         FlowMeasurement
             ``displacement_um`` (float, NaN if no mask pixel is finite), ``rigid_shift_px``
-            (2,), ``flow_px`` (Y, X, 2) float32 with the rigid shift removed (for maps), and
-            ``clipped_fraction`` of the frame's 8-bit mapping.
+            (2,) the shift removed, ``flow_px`` (Y, X, 2) float32 with it removed (for
+            maps), ``clipped_fraction`` of the frame's 8-bit mapping and
+            ``estimated_shift_px`` (2,) the frame's own estimate
+            (:func:`estimate_rigid_shift`).
 
         Raises
         ------
@@ -618,7 +636,10 @@ class FlowTracker:
             iterations=self.refine_iterations,
         )
         flow[~finite] = np.nan
-        shift = estimate_rigid_shift(flow, background=self.background)
+        estimate = estimate_rigid_shift(flow, background=self.background)
+        shift = estimate if rigid_shift_px is None else np.asarray(rigid_shift_px, dtype=float)
+        if shift.shape != (2,):
+            raise InputError(f"rigid_shift_px must have shape (2,), got {shift.shape}; (dx, dy)")
         flow -= shift.astype(np.float32)
         mask = self.mask & finite
         value = (
@@ -626,7 +647,7 @@ class FlowTracker:
             if mask.any()
             else float("nan")
         )
-        return FlowMeasurement(value, shift, flow, clipped)
+        return FlowMeasurement(value, shift, flow, clipped, estimate)
 
     def displacement(self, frame_nm: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
         """``(displacement_um, rigid_shift_px (2,), flow (Y, X, 2))`` of one frame.

@@ -244,8 +244,8 @@ def test_featureless_field_warns_about_sign():
 @pytest.mark.parametrize(
     ("kwargs", "error", "match"),
     [
-        ({"wavelength_nm": None, "pixel_size_um": 0.3}, MetadataError, "--wavelength-nm"),
-        ({"wavelength_nm": 632.8, "pixel_size_um": -1}, MetadataError, "--pixel-size-um"),
+        ({"wavelength_nm": None, "pixel_size_um": 0.3}, MetadataError, "wavelength_nm=NM"),
+        ({"wavelength_nm": 632.8, "pixel_size_um": -1}, MetadataError, "pixel_size_um=UM"),
         (
             {"wavelength_nm": 632.8, "pixel_size_um": 0.3, "sideband": "+2"},
             ConfigError,
@@ -271,7 +271,7 @@ def test_bad_options(kwargs, error, match):
 
 def test_phase_image_is_rejected_with_a_hint():
     phase_like = _cells(np.random.default_rng(19))
-    with pytest.raises(InputError, match="--kind phase/opd"):
+    with pytest.raises(InputError, match="kind=phase or kind=opd"):
         OffAxisReconstructor.fit(phase_like, wavelength_nm=LAMBDA_NM, pixel_size_um=PIXEL_UM)
 
 

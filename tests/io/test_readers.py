@@ -118,7 +118,7 @@ def test_plain_tiff_needs_flags(tmp_path, stack):
     rec = open_recording(path)
     assert rec.fps is None and rec.pixel_size_um is None
     assert not rec.metadata["memory_mapped"]
-    with pytest.raises(MetadataError, match="--fps HZ"):
+    with pytest.raises(MetadataError, match="fps=HZ"):
         rec.require("fps")
     rec = open_recording(path, fps=15, pixel_size_um=0.4)
     rec.require("fps", "pixel_size_um")
@@ -129,7 +129,7 @@ def test_flags_override_file(tmp_path, stack):
     path = write_ome_tiff(tmp_path / "e.ome.tif", stack, fps=30.0, pixel_size_um=0.25)
     rec = open_recording(path, fps=100.0, pixel_size_um=1.0, wavelength_nm=532.0)
     assert (rec.fps, rec.pixel_size_um, rec.wavelength_nm) == (100.0, 1.0, 532.0)
-    assert rec.metadata["fps_source"] == "flag --fps"
+    assert rec.metadata["fps_source"] == "given (fps)"
 
 
 def test_npy_memory_mapped(tmp_path, stack):
@@ -196,7 +196,7 @@ def test_unreadable_and_unsupported(tmp_path):
 
 def test_invalid_flag_values(tmp_path, stack):
     path = write_ome_tiff(tmp_path / "h.ome.tif", stack, fps=30.0, pixel_size_um=0.25)
-    with pytest.raises(MetadataError, match="--fps"):
+    with pytest.raises(MetadataError, match="fps=HZ"):
         open_recording(path, fps=-3)
     with pytest.raises(InputError, match="unknown kind"):
         open_recording(path, kind="fluorescence")

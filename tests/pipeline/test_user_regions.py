@@ -56,7 +56,11 @@ def test_label_image_gives_one_result_per_region(two_clusters):
     beats = pd.read_csv(out / "region_beats.csv")
     assert set(beats["region"]) == {1, 2}
     traces = pd.read_csv(out / "region_traces.csv")
-    assert {"displacement_um_r1", "displacement_um_r2"} <= set(traces.columns)
+    assert list(traces.columns) == [
+        "time_s", "region", "displacement_um", "velocity_um_s", "opd_change_nm"
+    ]  # fmt: skip
+    assert set(traces["region"]) == {1, 2}
+    assert (traces.groupby("region").size() == len(pd.read_csv(out / "trace.csv"))).all()
     summary = json.loads((out / "summary.json").read_text())
     assert summary["n_regions"] == 2
 

@@ -1,4 +1,4 @@
-"""Tests of beatlab.signals.maps: tile reduction, beating maps and onset propagation."""
+"""Tests of beatlab.signals.maps (tile reduction) and beatlab.maps (beating maps, propagation)."""
 
 import math
 
@@ -6,13 +6,8 @@ import numpy as np
 import pytest
 
 from beatlab.errors import BeatlabWarning, ConfigError, InputError
-from beatlab.signals.maps import (
-    build_maps,
-    estimate_propagation,
-    tile_grid_shape,
-    tile_labels,
-    tile_means,
-)
+from beatlab.maps import build_maps, estimate_propagation
+from beatlab.signals.maps import tile_grid_shape, tile_labels, tile_means
 
 NY, NX, TILE_UM = 8, 10, 20.0
 RISE_S, DECAY_S = 0.15, 0.3

@@ -1,0 +1,124 @@
+"""Stage: the recording-level summary (``summary.json``), built in one place."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from beatlab._version import __version__
+from beatlab.io.writers import json_ready
+from beatlab.output import CAUTION
+from beatlab.settings import Settings
+from beatlab.stages.frame_pass import FrameSignals
+from beatlab.stages.reference import Reference
+from beatlab.stages.trace import TraceResult
+
+__all__ = ["summarize"]
+
+_SOURCES = ("format", "fps_source", "pixel_size_source", "wavelength_source", "kind_source")
+
+
+def _quality(trace: TraceResult, frames: FrameSignals, reference: Reference, recording) -> dict:
+    rest = reference.rest
+    drift_um = frames.drift_px - frames.drift_px[0]
+    finite = np.isfinite(drift_um).all(axis=1)
+    return {
+        "snr": trace.summary["snr"],
+        "trace_noise_um": trace.summary["trace_noise_um"],
+        "drift_max_um": float(np.max(np.hypot(*drift_um[finite].T))) if finite.any() else None,
+        "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
+        "masked_fraction": reference.cells.masked_fraction,
+        "mask_method": reference.cells.method,
+        "drift_reference": frames.drift_reference,
+        "clipped_fraction": float(np.mean(frames.clipped_fraction)),
+        "template_clipped_fraction": frames.template_clipped_fraction,
+        "rest_template_method": rest.method,
+        "rest_frames": int(rest.rest.sum()),
+        "template_frames": int(rest.n_frames_used),
+        "template_segments": [
+            {"start_s": seg.start_s, "stop_s": seg.stop_s, "frames": int(seg.frames.size)}
+            for seg in rest.segments
+        ],
+        "frame_noise_nm": frames.frame_noise_nm,
+        "uneven_timing": recording.uneven_timing,
+    }
+
+
+def _metadata(recording, source) -> dict:
+    meta = {
+        "source": recording.source,
+        "kind": recording.kind,
+        "fps": recording.fps,
+        "frames": recording.n_frames,
+        "duration_s": recording.duration_s,
+        "frame_shape_px": list(recording.shape),
+        "pixel_size_um": recording.pixel_size_um,
+        "analysis_pixel_size_um": float(source.pixel_size_um),
+        "analysis_shape_px": list(source.shape),
+        "wavelength_nm": recording.wavelength_nm,
+        "sources": {key: recording.metadata.get(key) for key in _SOURCES},
+    }
+    if source.reconstructor is not None:
+        recon = source.reconstructor
+        meta["holography"] = {
+            "carrier": [float(c) for c in np.ravel(recon.carrier)],
+            "sign": int(recon.sign),
+        }
+    return meta
+
+
+def summarize(
+    trace: TraceResult,
+    frames: FrameSignals,
+    reference: Reference,
+    *,
+    maps: dict,
+    n_regions: int,
+    recording,
+    source,
+    settings: Settings,
+    warnings: list[str],
+) -> dict:
+    """The JSON-ready summary of one recording (keys in ``beatlab.schema`` order).
+
+    Parameters
+    ----------
+    trace : TraceResult
+        The whole-mask analysis (its rhythm keys lead the summary; its ``snr`` and
+        ``trace_noise_um`` go to ``quality``).
+    frames : FrameSignals
+        Drift, clipping and noise of the per-frame pass.
+    reference : Reference
+        Mask, rest template and its method.
+    maps : dict
+        From :func:`beatlab.maps.build_maps` (``beating_area_fraction``, ``propagation``).
+    n_regions : int
+        Independently beating regions found.
+    recording : Recording
+        The input (metadata used).
+    source : OPDSource
+        The OPD frames actually analysed (pixel size and shape after reconstruction).
+    settings : Settings
+        The full parameter set.
+    warnings : list of str
+        Every warning raised while analysing.
+
+    Returns
+    -------
+    dict
+        JSON-ready (NaN as None, numpy scalars as Python numbers).
+    """
+    metrics = {k: v for k, v in trace.summary.items() if k not in ("snr", "trace_noise_um")}
+    return json_ready(
+        {
+            **metrics,
+            "beating_area_fraction": maps["beating_area_fraction"],
+            "n_regions": int(n_regions),
+            "quality": _quality(trace, frames, reference, recording),
+            "propagation": maps["propagation"],
+            "metadata": _metadata(recording, source),
+            "parameters": settings.to_dict(),
+            "warnings": list(warnings),
+            "beatlab_version": __version__,
+            "caution": CAUTION,
+        }
+    )

@@ -1,0 +1,105 @@
+"""Stage: one contraction trace to velocity, beats, landmarks and rhythm.
+
+:func:`analyze_trace` is called once for the whole mask and once per region, with the same
+settings, so every region is measured exactly like the whole field.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from beatlab.beats import average_beat, detect_beats, estimate_noise, measure_beats
+from beatlab.rhythm import summarize_rhythm
+from beatlab.settings import BeatSettings, RhythmSettings, VelocitySettings
+from beatlab.signals.traces import velocity_trace
+
+__all__ = ["TraceResult", "analyze_trace"]
+
+
+@dataclass(frozen=True)
+class TraceResult:
+    """Beats and rhythm of one contraction trace.
+
+    Attributes
+    ----------
+    velocity_um_s : ndarray (T,)
+        Signed velocity of the displacement trace, um/s.
+    beats : pandas.DataFrame
+        One row per beat (:func:`beatlab.beats.measure_beats` columns).
+    summary : dict
+        :func:`beatlab.rhythm.summarize_rhythm` keys, then ``snr`` (median displacement
+        amplitude / trace noise SD; None without beats) and ``trace_noise_um`` (robust noise
+        SD of the displacement trace, um).
+    average_beat : pandas.DataFrame
+        Ensemble average aligned at onset (:func:`beatlab.beats.average_beat`).
+    """
+
+    velocity_um_s: np.ndarray
+    beats: pd.DataFrame
+    summary: dict
+    average_beat: pd.DataFrame
+
+
+def _fill_gaps(trace: np.ndarray, times_s: np.ndarray) -> np.ndarray:
+    """NaN frames (dropped or empty) linearly interpolated from their neighbours."""
+    finite = np.isfinite(trace)
+    if finite.all() or finite.sum() < 2:
+        return trace
+    return np.where(finite, trace, np.interp(times_s, times_s[finite], trace[finite]))
+
+
+def analyze_trace(
+    displacement_um: np.ndarray,
+    opd_change_nm: np.ndarray,
+    times_s: np.ndarray,
+    *,
+    velocity: VelocitySettings,
+    beats: BeatSettings,
+    rhythm: RhythmSettings,
+    start_s: float,
+    end_s: float,
+) -> TraceResult:
+    """Velocity, beats with their landmarks, rhythm indices and average beat of one trace.
+
+    Parameters
+    ----------
+    displacement_um : ndarray (T,)
+        The primary contraction trace, um (NaN frames are bridged).
+    opd_change_nm : ndarray (T,)
+        The OPD-change trace, nm.
+    times_s : ndarray (T,)
+        Frame times, s.
+    velocity, beats, rhythm : settings sections
+        ``[velocity]``, ``[beats]`` and ``[rhythm]``.
+    start_s, end_s : float
+        Start and end of the recording, s (for pauses at the edges).
+
+    Returns
+    -------
+    TraceResult
+    """
+    work = _fill_gaps(np.asarray(displacement_um, dtype=float), times_s)
+    vel = velocity_trace(
+        np.nan_to_num(work, nan=np.nanmedian(work)),
+        times_s,
+        window_ms=velocity.window_ms,
+        polyorder=velocity.polyorder,
+    )
+    peaks = detect_beats(work, times_s, **beats.detect_options())
+    table = measure_beats(
+        work, times_s, peaks, velocity=vel, opd_change=opd_change_nm, **beats.measure_options()
+    )
+    summary = summarize_rhythm(table, start_s=start_s, end_s=end_s, **rhythm.options())
+    noise = float(estimate_noise(work))
+    amplitude = summary.get("displacement_um")
+    summary["snr"] = float(amplitude) / noise if amplitude is not None and noise > 0 else None
+    summary["trace_noise_um"] = noise
+    average = average_beat(
+        times_s,
+        {"displacement_um": work, "velocity_um_s": vel, "opd_change_nm": opd_change_nm},
+        table["onset_s"].dropna().to_numpy(),
+    )
+    return TraceResult(velocity_um_s=vel, beats=table, summary=summary, average_beat=average)

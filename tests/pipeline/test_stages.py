@@ -1,0 +1,106 @@
+"""Each stage on its own: arrays (or the previous stage's result) in, a frozen result out."""
+
+import dataclasses
+import math
+
+import numpy as np
+import pytest
+
+from beatlab.frames import OPDSource
+from beatlab.settings import load_settings
+from beatlab.stages import (
+    FrameSignals,
+    Reference,
+    TraceResult,
+    analyze_trace,
+    measure_frames,
+    prepare_reference,
+)
+from beatlab.synth import simulate_recording
+from tests.pipeline.helpers import as_recording
+
+FPS = 50.0
+RISE_S, TAU_S = 0.12, 0.1
+
+
+def _beat_train(peaks_s, times, amplitude=0.5):
+    """Half-cosine rise to each peak, exponential relaxation: a shape built here, by hand."""
+    trace = np.zeros_like(times)
+    for p in peaks_s:
+        rise = (times > p - RISE_S) & (times <= p)
+        trace[rise] += (
+            amplitude * 0.5 * (1 - np.cos(math.pi * (times[rise] - p + RISE_S) / RISE_S))
+        )
+        fall = times > p
+        trace[fall] += amplitude * np.exp(-(times[fall] - p) / TAU_S)
+    return trace
+
+
+def test_analyze_trace_takes_arrays_and_uses_its_settings():
+    times = np.arange(0, 8, 1 / FPS)
+    peaks = np.arange(0.6, 7.6, 1.0)
+    trace = _beat_train(peaks, times) + np.random.default_rng(3).normal(0, 0.004, times.size)
+    opd = 20 * trace / 0.5
+    settings = load_settings()
+    kw = dict(velocity=settings.velocity, rhythm=settings.rhythm, start_s=0.0, end_s=8.0)
+    res = analyze_trace(trace, opd, times, beats=settings.beats, **kw)
+    assert isinstance(res, TraceResult)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        res.beats = None
+    assert len(res.beats) == peaks.size
+    # the peak of this shape is its cusp at p: sub-frame timing within half a frame
+    assert np.abs(res.beats["peak_s"].to_numpy() - peaks).max() < 0.5 / FPS
+    assert res.summary["beat_rate_bpm"] == pytest.approx(60.0, rel=1e-3)
+    # 10 % onset of a half-cosine rise: 0.5 (1 - cos(pi s / rise)) = 0.1 (closed form)
+    onset_lag = RISE_S * (1 - math.acos(0.8) / math.pi)
+    assert np.median(res.beats["time_to_peak_s"]) == pytest.approx(onset_lag, abs=0.006)
+    # the velocity is the derivative of the trace: positive on the rise, negative after
+    assert res.velocity_um_s[np.searchsorted(times, peaks[0] - RISE_S / 2)] > 0
+    assert res.velocity_um_s[np.searchsorted(times, peaks[0] + 0.05)] < 0
+    # the same trace with a [beats] setting that forbids 60 bpm halves the beats found
+    slow = load_settings({"beats": {"max_rate_bpm": 40.0}})
+    assert len(analyze_trace(trace, opd, times, beats=slow.beats, **kw).beats) < peaks.size
+
+
+@pytest.fixture(scope="module")
+def drifting():
+    """A beating cluster on a stage that drifts 3 um in x and -2 um in y."""
+    sim = simulate_recording(
+        duration_s=5, fps=20, shape_px=(96, 96), rate_bpm=60, stage_drift_um=(-2.0, 3.0), rng=5
+    )
+    rec = as_recording(sim)
+    return sim, rec, OPDSource(rec)
+
+
+def test_reference_and_frame_pass_on_their_own(drifting):
+    sim, rec, source = drifting
+    settings = load_settings()
+    times = np.asarray(rec.times_s)
+    ref = prepare_reference(source, times_s=times, settings=settings)
+    assert isinstance(ref, Reference) and ref.mask.any()
+    lo, hi = ref.flow_scale
+    assert lo < np.nanpercentile(ref.template, 1) and hi > np.nanpercentile(ref.template, 99)
+    frames = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
+    assert isinstance(frames, FrameSignals)
+    n = times.size
+    assert frames.displacement_um.shape == frames.opd_change_nm.shape == (n,)
+    assert frames.tile_traces_um.shape == (n, int(np.prod(frames.tile_grid)))
+    # the drift removed follows the stage: (dx, dy) px = (x, y) um / pixel size, linear in
+    # time (simulator truth: stage_drift_um is (y, x) reached at the last frame)
+    drift_um = (frames.drift_px - frames.drift_px[0]) * sim.pixel_size_um
+    expected = np.stack([3.0 * times / times[-1], -2.0 * times / times[-1]], axis=1)
+    assert np.abs(drift_um - expected).max() < 0.15
+    # once the drift is removed, the trace at rest is near its floor, not at 3.6 um
+    assert np.nanmax(frames.displacement_um) < 1.0
+
+
+def test_frame_pass_drift_off_leaves_the_stage_motion_in(drifting):
+    _, rec, source = drifting
+    times = np.asarray(rec.times_s)
+    settings = load_settings({"flow": {"rigid": "none"}})
+    ref = prepare_reference(source, times_s=times, settings=settings)
+    frames = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
+    assert frames.drift_reference == "none"
+    # nothing removed: the last frames carry the 3.6 um (7 px) stage shift as "displacement"
+    # (read short: a 7 px shift is beyond the flow's design range), far above the beats
+    assert np.nanmean(frames.displacement_um[-5:]) > 1.2
