@@ -64,7 +64,7 @@ class MaskSettings:
 
 @dataclass(frozen=True)
 class FlowSettings:
-    """``[flow]``: dense optical flow (:class:`beatlab.signals.flow.FlowTracker`)."""
+    """``[flow]``: dense optical flow (:class:`beatlab.signals.tracker.FlowTracker`)."""
 
     method: str
     preset: str

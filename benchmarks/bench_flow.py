@@ -24,7 +24,7 @@ import cv2
 import numpy as np
 from scipy import ndimage as ndi
 
-from beatlab.signals.flow import FlowTracker
+from beatlab.signals.tracker import FlowTracker
 
 __all__ = ["main"]
 

@@ -15,11 +15,12 @@ from beatlab.maps import build_maps
 from beatlab.regions import find_regions, split_regions
 from beatlab.rhythm import classify_rhythm, summarize_rhythm
 from beatlab.settings import Settings, load_settings
-from beatlab.signals.flow import FlowTracker, compute_flow, refine_flow
+from beatlab.signals.flow import compute_flow, refine_flow
 from beatlab.signals.level import PlaneLeveller
 from beatlab.signals.mask import make_cell_mask
 from beatlab.signals.rest import estimate_rest_template
 from beatlab.signals.traces import velocity_trace
+from beatlab.signals.tracker import FlowTracker
 
 _TYPES = {bool: "bool", int: "int", float: "float", str: "str"}
 
@@ -44,39 +45,42 @@ def test_settings_round_trip_the_nested_config():
     assert settings.beats.min_snr == 9.0 and settings.flow.preset == "medium"
     assert settings.to_dict() == load_config(overrides)
     assert load_settings(settings) is settings
-    with pytest.raises(ConfigError, match="beats.min_snr"):
+    with pytest.raises(ConfigError, match=r"beats\.min_snr"):
         load_settings({"beats": {"min_snr": "high"}})
 
 
 # (callable, {its parameter: (section, key)}): every signature default of a stage function
 # that a configuration key sets must equal the parameter table's default.
+def _keys(section, *names):
+    """{parameter: (section, key)} for parameters named like their key."""
+    return {name: (section, name) for name in (names or PARAMETERS[section])}
+
+
+_FLOW = ("method", "preset", "refine_iterations", "window_px")
 _SIGNATURES = [
-    (detect_beats, {k: ("beats", k) for k in ("max_rate_bpm", "min_snr", "min_relative_prominence")}),
+    (detect_beats, _keys("beats", "max_rate_bpm", "min_snr", "min_relative_prominence")),
     (
         measure_beats,
-        {
-            k: ("beats", k)
-            for k in (
-                "secondary_prominence", "secondary_min_level", "irregular_tolerance",
-                "interpolation",
-            )
-        },
+        _keys(
+            "beats", "secondary_prominence", "secondary_min_level", "irregular_tolerance",
+            "interpolation",
+        ),
     ),
-    (summarize_rhythm, {k: ("rhythm", k) for k in PARAMETERS["rhythm"]}),
-    (classify_rhythm, {k: ("rhythm", k) for k in PARAMETERS["rhythm"]}),
-    (velocity_trace, {k: ("velocity", k) for k in PARAMETERS["velocity"]}),
+    (summarize_rhythm, _keys("rhythm")),
+    (classify_rhythm, _keys("rhythm")),
+    (velocity_trace, _keys("velocity")),
     (
         estimate_rest_template,
-        {k: ("template", k) for k in ("rest_quantile", "max_rest_frames", "level_tilt", "refresh_s")},
+        _keys("template", "rest_quantile", "max_rest_frames", "level_tilt", "refresh_s"),
     ),
-    (make_cell_mask, {k: ("mask", k) for k in PARAMETERS["mask"]}),
-    (FlowTracker, {k: ("flow", k) for k in ("method", "preset", "refine_iterations", "window_px")}),
-    (compute_flow, {k: ("flow", k) for k in ("method", "preset", "refine_iterations", "window_px")}),
-    (refine_flow, {"iterations": ("flow", "refine_iterations"), "window_px": ("flow", "window_px")}),
-    (build_maps, {"min_snr": ("maps", "min_snr")}),
-    (find_regions, {k: ("regions", k) for k in ("min_area_um2", "merge_correlation")}),
-    (split_regions, {"merge_correlation": ("regions", "merge_correlation")}),
-    (OPDSource, {k: ("input", k) for k in ("opd_scale", "phase_scale", "chunk_frames")}),
+    (make_cell_mask, _keys("mask")),
+    (FlowTracker, _keys("flow", *_FLOW)),
+    (compute_flow, _keys("flow", *_FLOW)),
+    (refine_flow, {"iterations": ("flow", "refine_iterations"), **_keys("flow", "window_px")}),
+    (build_maps, _keys("maps", "min_snr")),
+    (find_regions, _keys("regions", "min_area_um2", "merge_correlation")),
+    (split_regions, _keys("regions", "merge_correlation")),
+    (OPDSource, _keys("input", "opd_scale", "phase_scale", "chunk_frames")),
     (PlaneLeveller, {"tilt": ("template", "level_tilt")}),
 ]  # fmt: skip
 

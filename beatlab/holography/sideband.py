@@ -116,7 +116,8 @@ def locate_sideband(hologram, *, exclusion_cycles_per_px=0.04, workers=None):
             f"{exclusion_cycles_per_px:g} to 0.5 cycles/px of a {ny}x{nx} frame; strongest "
             f"peak {ratio:.1f}x the median at {radius[iy, ix]:.3f} cycles/px, need "
             f"{_MIN_PEAK_RATIO:g}x away from the zero "
-            "order); check that the file holds raw off-axis holograms, or pass kind=phase or kind=opd"
+            "order); check that the file holds raw off-axis holograms, or pass kind=phase or "
+            "kind=opd"
         )
     logmag = np.log(np.maximum(mag, np.finfo(np.float64).tiny))
     dy = _parabolic_offset(logmag[(iy - 1) % ny, ix], logmag[iy, ix], logmag[(iy + 1) % ny, ix])

@@ -239,7 +239,9 @@ def _timing(n_frames: int, fps_flag, found: dict, source: str):
     if fps_flag is not None:
         fps = float(fps_flag)
         if not (math.isfinite(fps) and fps > 0):
-            raise MetadataError(f"fps must be a positive frame rate in Hz, got {fps_flag!r}; pass fps=HZ")
+            raise MetadataError(
+                f"fps must be a positive frame rate in Hz, got {fps_flag!r}; pass fps=HZ"
+            )
         found["fps_source"] = "given (fps)"
         return fps, np.arange(n_frames) / fps, False
     times = found.get("plane_times_s")
@@ -481,12 +483,16 @@ def open_recording(
     rate, times, uneven = _timing(n, fps, found, name)
     if pixel_size_um is not None:
         if not (math.isfinite(float(pixel_size_um)) and float(pixel_size_um) > 0):
-            raise MetadataError(f"pixel_size_um must be positive, got {pixel_size_um!r}; pass pixel_size_um=UM")
+            raise MetadataError(
+                f"pixel_size_um must be positive, got {pixel_size_um!r}; pass pixel_size_um=UM"
+            )
         found["pixel_size_um"] = float(pixel_size_um)
         found["pixel_size_source"] = "given (pixel_size_um)"
     if wavelength_nm is not None:
         if not (math.isfinite(float(wavelength_nm)) and float(wavelength_nm) > 0):
-            raise MetadataError(f"wavelength_nm must be positive, got {wavelength_nm!r}; pass wavelength_nm=NM")
+            raise MetadataError(
+                f"wavelength_nm must be positive, got {wavelength_nm!r}; pass wavelength_nm=NM"
+            )
         found["wavelength_nm"] = float(wavelength_nm)
         found["wavelength_source"] = "given (wavelength_nm)"
     if found.get("pixel_size_y_um") is not None and pixel_size_um is None:

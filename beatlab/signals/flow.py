@@ -4,7 +4,7 @@ The primary contraction trace ``displacement_um`` is the mean over the cell mask
 magnitude of the dense optical flow from a rest template to each frame, after removing the
 rigid shift of the whole field (stage drift, vibration).
 
-Pipeline per frame (:class:`FlowTracker`):
+Pipeline per frame (:class:`beatlab.signals.tracker.FlowTracker`):
 
 1. map template and frame to 8 bits with ONE fixed scale per recording (:func:`flow_scale`,
    robust percentiles of the template; never per frame, since per-frame scaling turns
@@ -20,7 +20,6 @@ Pipeline per frame (:class:`FlowTracker`):
 from __future__ import annotations
 
 from collections.abc import Callable
-from typing import NamedTuple
 
 import cv2
 import numpy as np
@@ -34,14 +33,12 @@ from beatlab.signals._flow_checks import (
     check_scale,
     check_window,
 )
-from beatlab.signals._flow_refine import ReferenceBasis, prepare_reference, refine_with_basis
+from beatlab.signals._flow_refine import prepare_reference, refine_with_basis
 
 __all__ = [
     "DIS_PRESETS",
     "FARNEBACK_PRESETS",
     "FLOW_METHODS",
-    "FlowMeasurement",
-    "FlowTracker",
     "compute_flow",
     "estimate_rigid_shift",
     "flow_scale",
@@ -95,16 +92,6 @@ FLOW_METHODS: dict[str, Callable[..., np.ndarray]] = {
 
 
 _PRESETS: dict[str, dict] = {"dis": DIS_PRESETS, "farneback": FARNEBACK_PRESETS}
-
-
-class FlowMeasurement(NamedTuple):
-    """Result of :meth:`FlowTracker.measure` for one frame."""
-
-    displacement_um: float
-    rigid_shift_px: np.ndarray  # (2,) float64, (dx, dy): the shift removed
-    flow_px: np.ndarray  # (Y, X, 2) float32, rigid shift removed
-    clipped_fraction: float
-    estimated_shift_px: np.ndarray | None = None  # (2,) the frame's own rigid-shift estimate
 
 
 def flow_scale(
@@ -439,221 +426,3 @@ def mean_displacement_um(
     if magnitude.size == 0:
         return float("nan")
     return float(magnitude.mean() * pixel_size_um)
-
-
-def _refine_region(mask, background, window_px):
-    """Bounding box (slices) of the pixels whose flow is used, with a margin.
-
-    The refinement only matters where the flow is read (the mask, and the background when it
-    sets the rigid shift); a margin of three window SDs plus 8 px keeps the Gaussian windows
-    and the warp of those pixels identical to a whole-field refinement.
-    """
-    used = mask if background is None else (mask | background)
-    if not used.any():
-        return (slice(None), slice(None))
-    margin = int(np.ceil(3 * window_px)) + 8
-    rows = np.flatnonzero(used.any(axis=1))
-    cols = np.flatnonzero(used.any(axis=0))
-    ny, nx = used.shape
-    return (
-        slice(max(rows[0] - margin, 0), min(rows[-1] + margin + 1, ny)),
-        slice(max(cols[0] - margin, 0), min(cols[-1] + margin + 1, nx)),
-    )
-
-
-class FlowTracker:
-    """Displacement of each frame from a rest template, configured once per recording.
-
-    Parameters
-    ----------
-    template_nm : ndarray, shape (Y, X)
-        Rest template (levelled OPD, nm), e.g. the median of resting frames. NaN pixels
-        are filled with the median template value and left out of the mask.
-    mask : ndarray of bool, shape (Y, X)
-        Cell mask over which the displacement magnitude is averaged.
-    pixel_size_um : float
-        Sample-plane pixel size, um.
-    method : str
-        Coarse flow method, a key of :data:`FLOW_METHODS`.
-    preset : str
-        Preset of the coarse method (``"ultrafast"``, ``"fast"``, ``"medium"``).
-    refine_iterations : int
-        Float Gauss-Newton steps after the coarse flow (0: raw OpenCV flow).
-    window_px : float
-        Gaussian window (standard deviation, px) of the refinement: larger lowers the noise
-        floor and smooths the field.
-    percentiles : (float, float)
-        Template percentiles mapped to grey 0 and 255 (:func:`flow_scale`).
-    scale : (float, float), optional
-        Explicit ``(lo_nm, hi_nm)`` mapping; overrides ``percentiles``.
-    background : ndarray of bool, shape (Y, X), optional
-        Stationary textured pixels for the rigid shift (:func:`estimate_rigid_shift`).
-
-    Attributes
-    ----------
-    scale : (float, float)
-        The fixed 8-bit mapping (lo_nm, hi_nm).
-    template_clipped_fraction : float
-        Share of template pixels clipped by the mapping.
-    mask : ndarray of bool
-        The mask used (finite template pixels only).
-
-    Raises
-    ------
-    InputError
-        Invalid shapes, empty mask, unknown method or preset, invalid options.
-
-    Notes
-    -----
-    Choices, measured with ``tests/signals/test_flow.py`` and
-    ``benchmarks/bench_flow.py --study`` (128 px OPD images: 40-220 nm cells with a smooth
-    texture of 6-50 nm std, i.e. contrast factors 0.25-2; a radial contraction field of
-    25 px radius warped exactly by ``scipy.ndimage.map_coordinates`` order 3 after inverting
-    the forward map; gain = mean measured / mean true magnitude over the mask):
-
-    - raw OpenCV flow on the 8-bit pair (``refine_iterations=0``), 0.1-6 px: DIS ultrafast
-      0.66-0.87, fast 0.70-0.86, medium 0.90-1.05 (over-reads only at 0.1 px), Farneback
-      0.97-1.06. The gain depends on preset, amplitude and contrast: unfit for +-3 %. (An
-      earlier colleague's note of Farneback reading a quarter of the truth on a low-contrast
-      copy was not reproduced: 0.95 on a copy squeezed into 64 grey levels.)
-    - a float Lucas-Kanade refinement with a *linear* warp (first study, not kept) still
-      over-read small motions by 4-9 %; with the exact cubic-spline warp, 2 steps give
-      0.985-0.999 (DIS fast), 0.988-0.997 (medium), 0.971-1.007 (ultrafast), 0.998-1.019
-      (Farneback) over 0.1-6 px and all contrasts; 1 step falls to 0.92-0.98 at 6 px.
-      So the coarse method only needs to land within the capture range and DIS fast, the
-      cheapest preset that stays within 1.5 %, is the default.
-    - the refinement runs on the unquantised template and frame (grey units of the fixed
-      mapping), not on the rounded 8-bit pair: rounding adds no noise, clipping no bias.
-    - window 4 px keeps the gain within 3.6 % even on a field of 13 px radius at 3 px
-      amplitude (a 25 % strain), where window 6 px loses 6-10 %.
-
-    Noise floor (mean magnitude at rest over the mask, template = mean of 20 rest frames,
-    white noise per pixel): with 25 nm texture std and window 4 px, 0.011-0.012 px at 1 nm
-    and 0.022-0.025 px at 2 nm (0.029 / 0.061 px at 4x lower texture contrast, 0.007 /
-    0.014 px at 2x higher); window 6 px lowers it to 0.009 / 0.017 px, window 2 px raises
-    it to 0.026 / 0.052 px. Raw DIS sits near 0.01 px thanks to its own variational
-    smoothing, but at the wrong gain. The floor is an upward bias that fades once the true
-    displacement exceeds it (at 0.1 px peak amplitude, 1 nm noise: gain 1.03).
-
-    ``measure``/``displacement`` do not change the tracker, so frames may run in threads.
-    NaN pixels of a frame are filled with the template (no apparent motion there) and left
-    out of that frame's mean.
-    """
-
-    def __init__(
-        self,
-        template_nm: np.ndarray,
-        mask: np.ndarray,
-        *,
-        pixel_size_um: float,
-        method: str = "dis",
-        preset: str = "fast",
-        refine_iterations: int = 2,
-        window_px: float = 4.0,
-        percentiles: tuple[float, float] = (0.5, 99.5),
-        scale: tuple[float, float] | None = None,
-        background: np.ndarray | None = None,
-    ) -> None:
-        template = check_image("template_nm", template_nm)
-        mask_arr = check_mask("mask", mask, template.shape)
-        check_choice("method", method, FLOW_METHODS)
-        check_choice("preset", preset, _PRESETS[method])
-        check_window(window_px, refine_iterations)
-        if not (np.isfinite(pixel_size_um) and pixel_size_um > 0):
-            raise InputError(
-                f"pixel_size_um must be a positive number, got {pixel_size_um!r}; "
-                "pass pixel_size_um=UM or add PhysicalSizeX"
-            )
-        finite = np.isfinite(template)
-        if not (mask_arr & finite).any():
-            raise InputError(
-                "mask has no True pixel with a finite template value; pass a cell mask"
-            )
-        self.scale = (
-            flow_scale(template, mask=None, percentiles=percentiles)
-            if scale is None
-            else check_scale(scale)
-        )
-        filled = np.where(finite, template, np.median(template[finite])).astype(np.float32)
-        self._template_nm = filled
-        self.template_u8, self.template_clipped_fraction = to_uint8(filled, self.scale)
-        self.mask = mask_arr & finite
-        self.background = (
-            None if background is None else check_mask("background", background, template.shape)
-        )
-        self.pixel_size_um = float(pixel_size_um)
-        self.method = method
-        self.preset = preset
-        self.refine_iterations = int(refine_iterations)
-        self.window_px = float(window_px)
-        self._region = _refine_region(self.mask, self.background, self.window_px)
-        self._basis: ReferenceBasis = prepare_reference(
-            _scale_to_grey(filled, self.scale)[self._region], window_px=self.window_px
-        )
-
-    def measure(
-        self, frame_nm: np.ndarray, *, rigid_shift_px: np.ndarray | None = None
-    ) -> FlowMeasurement:
-        """Displacement, rigid shift, shift-free flow and clipped fraction of one frame.
-
-        Parameters
-        ----------
-        frame_nm : ndarray, shape (Y, X)
-            OPD frame, nm, levelled like the template.
-        rigid_shift_px : array-like, shape (2,), optional
-            (dx, dy) px to remove instead of the frame's own estimate, e.g. a drift
-            interpolated in time from resting frames, or zeros to remove nothing.
-
-        Returns
-        -------
-        FlowMeasurement
-            ``displacement_um`` (float, NaN if no mask pixel is finite), ``rigid_shift_px``
-            (2,) the shift removed, ``flow_px`` (Y, X, 2) float32 with it removed (for
-            maps), ``clipped_fraction`` of the frame's 8-bit mapping and
-            ``estimated_shift_px`` (2,) the frame's own estimate
-            (:func:`estimate_rigid_shift`).
-
-        Raises
-        ------
-        InputError
-            Frame shape differs from the template.
-        """
-        frame = check_image("frame_nm", frame_nm)
-        if frame.shape != self._template_nm.shape:
-            raise InputError(
-                f"frame_nm must have the template shape {self._template_nm.shape}, got "
-                f"{frame.shape}; pass frames of the same recording"
-            )
-        finite = np.isfinite(frame)
-        filled = np.where(finite, frame, self._template_nm)
-        moving_u8, clipped = to_uint8(filled, self.scale)
-        flow = FLOW_METHODS[self.method](self.template_u8, moving_u8, preset=self.preset)
-        region = self._region
-        flow[region] = refine_with_basis(
-            self._basis,
-            _scale_to_grey(filled, self.scale)[region],
-            flow[region],
-            iterations=self.refine_iterations,
-        )
-        flow[~finite] = np.nan
-        estimate = estimate_rigid_shift(flow, background=self.background)
-        shift = estimate if rigid_shift_px is None else np.asarray(rigid_shift_px, dtype=float)
-        if shift.shape != (2,):
-            raise InputError(f"rigid_shift_px must have shape (2,), got {shift.shape}; (dx, dy)")
-        flow -= shift.astype(np.float32)
-        mask = self.mask & finite
-        value = (
-            mean_displacement_um(flow, mask, pixel_size_um=self.pixel_size_um)
-            if mask.any()
-            else float("nan")
-        )
-        return FlowMeasurement(value, shift, flow, clipped, estimate)
-
-    def displacement(self, frame_nm: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
-        """``(displacement_um, rigid_shift_px (2,), flow (Y, X, 2))`` of one frame.
-
-        The flow is returned with the rigid shift removed (px, float32, NaN where the frame
-        is NaN), ready for displacement maps. See :meth:`measure`.
-        """
-        result = self.measure(frame_nm)
-        return result.displacement_um, result.rigid_shift_px, result.flow_px

@@ -3,7 +3,7 @@
 :func:`measure_frames` streams the frames once (twice for the resting frames when the drift is
 measured there and interpolated in time) and reduces each frame to a few numbers; nothing
 per-pixel is kept. The per-frame work is the tested code of :mod:`beatlab.signals`:
-:class:`~beatlab.signals.level.PlaneLeveller`, :class:`~beatlab.signals.flow.FlowTracker`,
+:class:`~beatlab.signals.level.PlaneLeveller`, :class:`~beatlab.signals.tracker.FlowTracker`,
 :func:`~beatlab.signals.maps.tile_means` and :func:`~beatlab.signals.traces.opd_change_trace`.
 """
 
@@ -17,11 +17,11 @@ import numpy as np
 
 from beatlab.errors import InputError
 from beatlab.settings import Settings
-from beatlab.signals.flow import FlowTracker
 from beatlab.signals.level import PlaneLeveller
 from beatlab.signals.maps import tile_grid_shape, tile_labels, tile_means
 from beatlab.signals.rest import RestTemplate, shift_image
 from beatlab.signals.traces import opd_change_trace
+from beatlab.signals.tracker import FlowTracker
 from beatlab.stages.reference import Reference
 
 __all__ = ["FrameSignals", "measure_frames", "rest_noise_variance"]

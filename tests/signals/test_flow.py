@@ -10,7 +10,6 @@ from skimage.registration import phase_cross_correlation
 from beatlab.errors import InputError
 from beatlab.signals.flow import (
     FLOW_METHODS,
-    FlowTracker,
     compute_flow,
     estimate_rigid_shift,
     flow_scale,
@@ -18,6 +17,7 @@ from beatlab.signals.flow import (
     refine_flow,
     to_uint8,
 )
+from beatlab.signals.tracker import FlowTracker
 
 N_PX = 128
 BORDER_PX = 12
