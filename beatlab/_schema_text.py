@@ -46,28 +46,33 @@ closest to the relaxed state.
 - `displacement_um`: the dense optical flow from the rest template to the frame (`flow.method`
   [dis] on a fixed 8-bit mapping of the OPD, refined by `flow.refine_iterations` [2]
   Gauss-Newton steps on the unrounded values), minus the rigid whole-field shift (the drift),
-  gives one displacement vector per pixel; `displacement_um` is the mean over the mask of the
-  length of these vectors times the pixel size. Being a mean of
-  lengths, it is never negative and, at rest, sits on a positive noise floor (the mean length
-  of pure-noise vectors), which also compresses the end of each relaxation into that floor.
-  Issue 8 replaces it by a signed projection onto the culture's contraction pattern, which has
-  no floor; until then compare amplitudes and durations of weak beats with this in mind.
+  gives a displacement field F_t(x) in px. The contraction pattern A(x) is the weighted mean
+  of the fields of the most contracted frames (up to 48, the 15 % whose OPD deviates most
+  from the relaxed state in the first pass, weighted by that deviation above its rest
+  level). Each frame's coordinate is c_t = sum F_t . A / sum |A|^2 over the mask, and
+  `displacement_um` = c_t x mean |A| over the mask x pixel size. For a field that is a
+  multiple of the pattern this is exactly its mean displacement magnitude; being linear in
+  the field, its noise is zero-mean: 0 at rest within its noise, signed (slightly negative
+  values at rest are noise), no floor, so durations do not change with amplitude or noise. A
+  frame that helped build A is projected onto A without itself (leave-one-out), so its own
+  noise does not bias it. Motion orthogonal to the pattern (migration, a second independent
+  region) does not count in full.
 - `velocity_um_s`: Savitzky-Golay derivative of `displacement_um`, window `velocity.window_ms`
   [60 ms] rounded to an odd number of frames, polynomial order `velocity.polyorder` [2]
   (uneven frame times: computed on an even grid and sampled back). It is not set to null
   when the frame rate is too low to resolve a beat's upstroke; judge that from
   `time_to_peak_s` against the frame interval.
-- `opd_change_nm`: the frame, shifted back by the drift, minus the rest template; the mean of
-  its square over the mask, minus the expected mean square at rest (frame noise variance
-  times 1 + 1/k, or 1 - 1/k for frames averaged into a template of k frames), floored at 0,
-  square root. About 0 at rest and never negative; it grows with any change of the cells'
-  OPD pattern, not only contraction, and depends on the cells' texture (a within-well
-  measure).
+- `opd_change_nm`: D_t = the frame, shifted back by the drift, minus the rest template,
+  projected the same way onto the OPD-change pattern B (the weighted mean of D over the same
+  most contracted frames): c_t = sum D_t B / sum B^2 over the mask, times the RMS of B over
+  the mask. Signed, 0 at rest within its noise and proportional to the contraction; it
+  depends on the cells' texture (a within-well measure).
 - `drift_x_um`, `drift_y_um`: the rigid shift of the frame relative to the first frame. It is
   measured as the median flow over the pixels named in `quality.drift_reference` and removed
   from the flow before `displacement_um` (with `flow.rigid` = none it is reported, not
   removed).
-- Region traces use the same definitions over the region's pixels."""
+- Region traces use the same definitions over the region's pixels, with the region's part
+  of the patterns."""
 
 LANDMARKS = """\
 Beats are measured on `displacement_um` (the primary trace), in this order.
@@ -229,15 +234,16 @@ Read these before trusting a recording's numbers:
 MAPS = """\
 The field is cut into square tiles of `maps.tile_um` [8 um] (rounded to whole pixels, at least
 4 px); tile (iy, ix) covers rows iy x tile_px to (iy + 1) x tile_px - 1 and likewise columns,
-with partial tiles at the bottom and right edges. Each tile's trace is the mean displacement
-magnitude over its mask pixels. A tile is assessed when at least 25 % of it is inside the mask
-and it has at least 3 resting frames with data; its rest level is the median and its noise the
-robust SD of its trace over the resting frames. Per beat, the tile's trace is smoothed by a
-moving average over 10 % of the median rise time; its peak is the maximum from one rise time
-before the beat's onset to one rise time after its peak (not crossing neighbouring beats); its
-onset is the last upward crossing, before that maximum, of rest level + 10 % of its amplitude,
-linearly interpolated between frames. `beating_area_fraction` = sum of the mask coverage of the
-beating tiles / the same sum over the assessed tiles.
+with partial tiles at the bottom and right edges. Each tile's trace is the contraction
+coordinate of its mask pixels (the projection above, onto the tile's part of the pattern). A
+tile is assessed when at least 25 % of it is inside the mask and it has at least 3 resting
+frames with data; its rest level is the median and its noise the robust SD of its trace over
+the resting frames. Per beat, the tile's trace is smoothed by a moving average over 10 % of the
+median rise time; its peak is the maximum from one rise time before the beat's onset to one
+rise time after its peak (not crossing neighbouring beats); its onset is the last upward
+crossing, before that maximum, of rest level + 10 % of its amplitude, linearly interpolated
+between frames. `beating_area_fraction` = sum of the mask coverage of the beating tiles / the
+same sum over the assessed tiles.
 
 Propagation: a least-squares plane t = a + b x + c y through the onset delays at the tile
 centres (x, y in um from the top-left corner), refitted once without residuals beyond 3 robust

@@ -139,6 +139,7 @@ def analyze(
         whole = analyze_trace(
             frames.displacement_um, frames.opd_change_nm, times, velocity=settings.velocity,
             beats=settings.beats, rhythm=settings.rhythm, start_s=start_s, end_s=end_s,
+            pattern_frames=frames.pattern_frames,
         )  # fmt: skip
         maps = build_maps(
             frames.tile_traces_um, times, grid_shape=frames.tile_grid, tile_um=frames.tile_um,

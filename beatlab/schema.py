@@ -198,14 +198,15 @@ TRACE_FIELDS = (
     _f("time_s", "s", "float",
        "Time of the frame from the first frame (file timestamps where given, else index / fps)."),
     _f("displacement_um", "um", "float",
-       "Mean over the cell mask of the magnitude of the optical-flow displacement from the rest "
-       "template, rigid shift removed; >= 0, with a noise floor at rest (see Traces)."),
+       "Contraction coordinate: the flow displacement field from the rest template (rigid shift "
+       "removed) projected onto the mask's contraction pattern, scaled to the pattern's mean "
+       "magnitude; signed, 0 at rest within its noise (see Traces)."),
     _f("velocity_um_s", "um/s", "float",
        "Signed time derivative of displacement_um (Savitzky-Golay): positive while it grows, "
        "negative while it falls."),
     _f("opd_change_nm", "nm", "float",
-       "RMS over the mask of (levelled, drift-aligned frame - rest template), expected rest "
-       "noise removed in quadrature, floored at 0 (see Traces)."),
+       "(levelled, drift-aligned frame - rest template) projected onto the mask's OPD-change "
+       "pattern, scaled to the pattern's RMS; signed, 0 at rest within its noise (see Traces)."),
     _f("drift_x_um", "um", "float",
        "Rigid whole-field shift of the frame along x (columns, to the right) relative to the "
        "first frame."),
@@ -299,10 +300,14 @@ TRACE_SUMMARY_FIELDS = (
     _f("trace_noise_um", "um", "float",
        "Robust white-noise SD of the displacement trace: 1.4826 x median absolute deviation of "
        "its frame-to-frame differences / sqrt 2."),
+    _f("pattern_snr", "1", "float",
+       "Median of the displacement trace over the frames that built the contraction pattern / "
+       "trace_noise_um; beats are looked for only when it is at least 3 (below, the pattern is "
+       "noise: no contraction found)."),
 )  # fmt: skip
 """Keys produced by analysing one trace: beatlab.rhythm.summarize_rhythm, then snr, noise."""
 
-_QUALITY_MOVED = ("snr", "trace_noise_um")
+_QUALITY_MOVED = ("snr", "trace_noise_um", "pattern_snr")
 
 REGION_FIELDS = (
     _f("region", "1", "int", "Region id (1-based), as in region_labels of maps.npz."),
@@ -325,13 +330,13 @@ REGION_TRACE_FIELDS = (
     _f("time_s", "s", "float", "Time of the frame from the first frame."),
     _f("region", "1", "int", "Region id, as in regions.csv."),
     _f("displacement_um", "um", "float",
-       "Mean over the region's pixels of the flow magnitude (rigid shift removed), as in "
-       "trace.csv."),
+       "Contraction coordinate of the region (projection onto the region's own pattern), as "
+       "in trace.csv."),
     _f("velocity_um_s", "um/s", "float",
        "Signed time derivative of the region's displacement_um (Savitzky-Golay)."),
     _f("opd_change_nm", "nm", "float",
-       "RMS over the region's pixels of (frame - rest template), rest noise removed in "
-       "quadrature, floored at 0."),
+       "OPD change of the region (projection onto the region's own OPD-change pattern), as in "
+       "trace.csv."),
 )  # fmt: skip
 """region_traces.csv (long format): one row per frame and region."""
 
@@ -339,6 +344,8 @@ QUALITY_FIELDS = (
     _f("snr", "1", "float", "snr of the whole-mask displacement trace (as in regions.csv)."),
     _f("trace_noise_um", "um", "float",
        "trace_noise_um of the whole-mask displacement trace (as in regions.csv)."),
+    _f("pattern_snr", "1", "float",
+       "pattern_snr of the whole-mask displacement trace (as in regions.csv)."),
     _f("drift_max_um", "um", "float",
        "Largest length of the drift vector (drift_x_um, drift_y_um) over the frames."),
     _f("drift_net_um", "um", "list",

@@ -86,7 +86,7 @@ def test_beat_fields_start_with_the_measured_columns_in_order():
 @pytest.mark.parametrize("n_beats", [0, 1, 3, 9])
 def test_trace_summary_fields_are_the_keys_of_summarize_rhythm(n_beats):
     summary = summarize_rhythm(_beats_table(n_beats), start_s=0.0, end_s=10.0)
-    expected = (*summary, "snr", "trace_noise_um")
+    expected = (*summary, "snr", "trace_noise_um", "pattern_snr")
     assert tuple(f.name for f in schema.TRACE_SUMMARY_FIELDS) == expected
 
 

@@ -1,10 +1,20 @@
-"""Stage: the per-frame pass (levelling, optical flow, drift, OPD change, tile and label means).
+"""Stage: the per-frame pass (levelling, optical flow, drift, projections onto the pattern).
 
-:func:`measure_frames` streams the frames once (twice for the resting frames when the drift is
-measured there and interpolated in time) and reduces each frame to a few numbers; nothing
-per-pixel is kept. The per-frame work is the tested code of :mod:`beatlab.signals`:
-:class:`~beatlab.signals.level.PlaneLeveller`, :class:`~beatlab.signals.tracker.FlowTracker`,
-:func:`~beatlab.signals.maps.tile_means` and :func:`~beatlab.signals.traces.opd_change_trace`.
+:func:`measure_frames` streams the frames and reduces each to a few numbers per group of
+pixels (the mask, each label, each map tile); nothing per-pixel is kept per frame. The work per
+frame is the tested code of :mod:`beatlab.signals`: :class:`~beatlab.signals.level.PlaneLeveller`,
+:class:`~beatlab.signals.tracker.FlowTracker`, :mod:`beatlab.signals.projection`.
+
+Three rounds, each over a subset of the frames:
+
+1. drift: when the rigid shift is measured on the cells (no textured background), only at up
+   to :data:`MAX_DRIFT_FRAMES` resting frames, where contraction does not bias it; the other
+   frames get it interpolated in time;
+2. pattern: the most contracted frames (by the rest pass's deviation from the relaxed state)
+   build the contraction pattern ``A`` (mean displacement field) and the OPD-change pattern
+   ``B`` (mean frame - template), weighted by how far each is from rest;
+3. every frame: its displacement field and OPD difference projected onto ``A`` and ``B``
+   (:mod:`beatlab.signals.projection`), summed per cell of pixels.
 """
 
 from __future__ import annotations
@@ -19,15 +29,33 @@ from beatlab.errors import InputError
 from beatlab.settings import Settings
 from beatlab.signals.level import PlaneLeveller
 from beatlab.signals.maps import tile_grid_shape, tile_labels, tile_means
+from beatlab.signals.projection import (
+    CellIndex,
+    PatternAccumulator,
+    ProjectionSums,
+    project_groups,
+)
 from beatlab.signals.rest import RestTemplate, shift_image
-from beatlab.signals.traces import opd_change_trace
 from beatlab.signals.tracker import FlowTracker
 from beatlab.stages.reference import Reference
 
-__all__ = ["FrameSignals", "measure_frames", "rest_noise_variance"]
+__all__ = [
+    "MAX_DRIFT_FRAMES",
+    "MAX_PATTERN_FRAMES",
+    "FrameSignals",
+    "interpolate_drift",
+    "measure_frames",
+    "zero_at_rest",
+]
 
 #: Shifts below this (px) are not applied to the OPD frame before differencing.
 _MIN_ALIGN_PX = 0.02
+#: At most this many resting frames (evenly spread) measure the drift on the cells.
+MAX_DRIFT_FRAMES = 64
+#: At most this many of the most contracted frames build the patterns (and at least 8).
+MAX_PATTERN_FRAMES = 48
+#: Share of the frames, the most contracted, that may build the patterns.
+_PATTERN_QUANTILE = 0.15
 
 
 @dataclass(frozen=True)
@@ -37,20 +65,21 @@ class FrameSignals:
     Attributes
     ----------
     displacement_um : ndarray (T,)
-        Mean flow magnitude over the mask, rigid shift removed, um (NaN: no finite pixel).
+        Contraction coordinate of the whole mask: the displacement field (rigid shift
+        removed) projected onto the mask's contraction pattern, scaled to the pattern's mean
+        magnitude, um. Signed, 0 at rest within its noise.
     opd_change_nm : ndarray (T,)
-        RMS over the mask of (aligned frame - template), frame noise removed in quadrature, nm.
+        (aligned frame - template) projected onto the OPD-change pattern, scaled to its RMS
+        over the mask, nm. Signed, 0 at rest within its noise.
     drift_px : ndarray (T, 2)
         Rigid (dx, dy) shift of each frame, px: the shift removed (or, with rigid removal
         off, the shift measured).
     clipped_fraction : ndarray (T,)
         Share of each frame's pixels clipped by the 8-bit flow mapping.
-    expected_noise_var_nm2 : ndarray (T,)
-        Expected mean square of (frame - template) at rest: frame plus template noise.
     frame_noise_nm : float or None
         Noise SD of one frame over the mask at rest, nm (None: unknown).
-    tile_traces_um : ndarray (T, n_tiles) float32
-        Mean flow magnitude per tile of the map grid, um.
+    tile_traces_um : ndarray (T, n_tiles)
+        Contraction coordinate of each map tile (its part of the mask), um.
     tile_grid : (int, int)
         ``(ny, nx)`` tiles, row-major.
     tile_um : float
@@ -58,83 +87,175 @@ class FrameSignals:
     tile_coverage : ndarray (n_tiles,)
         Share of each tile inside the mask.
     label_displacement_um : ndarray (L, T)
-        Mean flow magnitude over each label of ``Reference.labels`` (row k: label k + 1), um.
-    label_mean_square_nm2 : ndarray (L, T)
-        Mean of (aligned frame - template)^2 over each label, nm^2.
-    label_area_px : ndarray (L + 1,)
-        Pixels per label (index 0: outside).
+        Contraction coordinate of each label of ``Reference.labels`` (row k: label k + 1), um.
+    sums : ProjectionSums
+        The per-cell projection sums behind every trace (for unions of labels).
+    cells : CellIndex
+        Cells of pixels and their groups (families ``mask``, ``labels``, ``tiles``).
+    pixel_size_um : float
+    pattern_frames : ndarray of int
+        Frames that built the patterns.
     drift_reference : str
         How the rigid shift was measured.
     template_clipped_fraction : float
         Share of the template clipped by the 8-bit mapping.
+    rest_frames : ndarray of bool (T,)
+        The resting frames; every trace is 0 at their median (:func:`zero_at_rest`).
+    segment : ndarray of int (T,)
+        Template segment of each frame.
     """
 
     displacement_um: np.ndarray
     opd_change_nm: np.ndarray
     drift_px: np.ndarray
     clipped_fraction: np.ndarray
-    expected_noise_var_nm2: np.ndarray
     frame_noise_nm: float | None
     tile_traces_um: np.ndarray
     tile_grid: tuple[int, int]
     tile_um: float
     tile_coverage: np.ndarray
     label_displacement_um: np.ndarray
-    label_mean_square_nm2: np.ndarray
-    label_area_px: np.ndarray
+    sums: ProjectionSums
+    cells: CellIndex
+    pixel_size_um: float
+    pattern_frames: np.ndarray
     drift_reference: str
     template_clipped_fraction: float
 
-    def region_opd_change_nm(self, members: tuple[int, ...]) -> np.ndarray:
-        """OPD change of the union of some labels (1-based), nm (area-weighted mean square)."""
-        idx = np.asarray(members, dtype=int)
-        w = self.label_area_px[idx]
-        ms = np.nansum(self.label_mean_square_nm2[idx - 1] * w[:, None], axis=0) / w.sum()
-        return opd_change_trace(ms, self.expected_noise_var_nm2)
+    rest_frames: np.ndarray
+    segment: np.ndarray
+
+    def label_union_traces(self, members) -> tuple[np.ndarray, np.ndarray]:
+        """Displacement (um) and OPD change (nm) of the union of some labels (1-based)."""
+        labels = self.cells.families["labels"]
+        union = labels[:, np.asarray(members, dtype=int) - 1].sum(axis=1)
+        disp, opd = project_groups(self.sums, np.asarray(union) > 0)
+        disp, opd = (zero_at_rest(t, self.rest_frames, self.segment) for t in (disp, opd))
+        return disp[:, 0] * self.pixel_size_um, opd[:, 0]
 
 
-def rest_noise_variance(
-    rest: RestTemplate, mask: np.ndarray, n_frames: int
-) -> tuple[float, np.ndarray]:
-    """Noise variance of one frame, and the expected mean square of (frame - template), nm^2.
+def zero_at_rest(traces: np.ndarray, rest: np.ndarray, segment: np.ndarray) -> np.ndarray:
+    """Traces (T, G) minus their median over the resting frames of each template segment.
 
-    Returns ``(sigma2, expected)``: the mean over the mask of a single frame's noise variance
-    at rest, and per frame (T,) the expected mean square over the mask of (frame - template)
-    at rest.
-
-    Frame noise plus template noise: frames averaged into a template of k frames share its
-    noise (factor 1 - 1/k), the others add it (1 + 1/k). With refresh segments, the median
-    segment size and the mean of the segments' noise (the whole-recording variance would also
-    hold the slow change of the rest state).
+    The rest state is 0 by definition. Each template (one, or one per refresh segment) adds
+    its own small constant to every projection (its noise seen as motion, which every frame
+    shares); the median over the resting frames measures it.
     """
-    k = rest.n_frames_used
-    sigma2 = float(np.nanmean(rest.noise_var[mask])) if k > 1 else 0.0
-    used = np.zeros(n_frames, dtype=bool)
-    used[rest.template_frames] = True
+    out = np.array(traces, dtype=float)
+    for seg in np.unique(segment):
+        frames = segment == seg
+        ref = frames & rest
+        if ref.sum() >= 3:
+            with np.errstate(all="ignore"):
+                level = np.nanmedian(out[ref], axis=0) if np.isfinite(out[ref]).any() else 0.0
+            out[frames] -= np.nan_to_num(level)
+    return out
+
+
+def rest_noise_nm(rest: RestTemplate, mask: np.ndarray) -> float | None:
+    """Noise SD of one frame over the mask at rest (nm), from the resting frames."""
     if rest.segments:
-        used[:] = False
+        var = float(np.nanmean([np.nanmean(seg.noise_var[mask]) for seg in rest.segments]))
+    elif rest.n_frames_used > 1:
+        var = float(np.nanmean(rest.noise_var[mask]))
+    else:
+        return None
+    return float(np.sqrt(var)) if var > 0 else None
+
+
+def _spread(indices: np.ndarray, most: int) -> np.ndarray:
+    """At most ``most`` of ``indices``, evenly spread."""
+    if indices.size <= most:
+        return indices
+    return indices[np.round(np.linspace(0, indices.size - 1, most)).astype(int)]
+
+
+#: Resting frames at each end whose straight-line fit extends the drift beyond them.
+_EDGE_FIT_FRAMES = 6
+
+
+def interpolate_drift(times_s: np.ndarray, frames: np.ndarray, shifts_px: np.ndarray):
+    """Drift of every frame from the drift measured at some frames, px (T, 2).
+
+    Linear between the measured frames; before the first and after the last, the straight
+    line fitted to the :data:`_EDGE_FIT_FRAMES` measured frames nearest that end (a constant
+    would leave a steadily drifting stage uncorrected over the ends of the recording).
+    """
+    t = times_s[frames]
+    out = np.stack([np.interp(times_s, t, shifts_px[:, c]) for c in (0, 1)], axis=1)
+    if frames.size < 2:
+        return out
+    for outside, near in (
+        (times_s < t[0], slice(0, _EDGE_FIT_FRAMES)),
+        (times_s > t[-1], slice(-_EDGE_FIT_FRAMES, None)),
+    ):
+        if outside.any():
+            slope, offset = np.polyfit(t[near], shifts_px[near], 1)
+            out[outside] = offset + np.outer(times_s[outside], slope)
+    return out
+
+
+def _template_membership(rest: RestTemplate, n_frames: int) -> np.ndarray:
+    """Per frame, the number of frames averaged into the template that holds it (else 0)."""
+    k = np.zeros(n_frames)
+    if rest.segments:
         for seg in rest.segments:
-            used[seg.frames] = True
-        k = int(np.median([seg.frames.size for seg in rest.segments]))
-        sigma2 = float(np.nanmean([np.nanmean(seg.noise_var[mask]) for seg in rest.segments]))
-    factor = np.where(used, 1 - 1 / k, 1 + 1 / k) if k > 1 else np.ones(n_frames)
-    return sigma2, sigma2 * factor
+            k[seg.frames] = seg.frames.size
+    else:
+        k[rest.template_frames] = rest.n_frames_used
+    return k
+
+
+def _share_template_noise(field_dot, opd_dot, in_template, template_k) -> None:
+    """Give the frames averaged into a template the projection of the template's noise.
+
+    Every frame's field from the template holds the template's noise (an average of k
+    frames' noise), and so does the pattern; a frame averaged into the template holds its
+    own noise in both, which cancels: its projection lacks the expected ``sigma^2 / k`` (per
+    cell, sigma^2 the noise energy of one frame) that every other frame carries. Adding it
+    makes resting frames in and out of the template read alike (the noise-variance factors
+    1 - 1/k and 1 + 1/k of a template average). ``sigma^2`` per cell is estimated from the
+    template frames themselves, whose own terms have the expectation ``(1 - 1/k) sigma^2``.
+    """
+    if not in_template:
+        return
+    frames = np.fromiter(in_template, dtype=int)
+    k = template_k[frames]
+    for column, dots in ((0, field_dot), (1, opd_dot)):
+        own = np.array([in_template[i][column] for i in frames])
+        sigma2 = np.mean(own / (1 - 1 / k)[:, None], axis=0)
+        dots[frames] += (sigma2[None, :] / k[:, None]).astype(dots.dtype)
+
+
+def _pattern_frames(rest: RestTemplate) -> tuple[np.ndarray, np.ndarray]:
+    """The most contracted frames and their weights (deviation above the rest level)."""
+    dev = np.asarray(rest.deviation, dtype=float)
+    level = float(rest.info.get("rest_deviation_nm", np.median(dev[rest.rest])))
+    count = int(np.clip(round(_PATTERN_QUANTILE * dev.size), 8, MAX_PATTERN_FRAMES))
+    order = np.argsort(-np.nan_to_num(dev, nan=-np.inf), kind="stable")[:count]
+    weights = dev[order] - level
+    keep = np.isfinite(weights) & (weights > 0)
+    return np.sort(order[keep]), weights[keep][np.argsort(order[keep])]
+
+
+def _cell_index(reference: Reference, tiles: np.ndarray, n_tiles: int) -> CellIndex:
+    mask = reference.mask
+    labels = reference.labels
+    return CellIndex.from_maps(
+        {
+            "mask": (np.where(mask, 0, -1), 1),
+            "labels": (np.where(labels > 0, labels - 1, -1), max(int(labels.max()), 1)),
+            "tiles": (np.where(mask, tiles, -1), n_tiles),
+        }
+    )
 
 
 class _FrameReducer:
-    """Reduce one frame against one reference (template, leveller, tracker) to numbers."""
+    """Levels, tracks and differences one frame against its reference (template segment)."""
 
     def __init__(self, reference: Reference, settings: Settings, px_um: float):
         f = settings.flow
         self.remove_rigid = f.rigid != "none"
-        self.mask = reference.mask
-        self.px_um = px_um
-        self.labels = reference.labels
-        self.n_labels = int(reference.labels.max())
-        tile_px = max(4, round(settings.maps.tile_um / px_um))
-        self.tile_px = tile_px
-        self.tiles = tile_labels(self.mask.shape, tile_px=tile_px)
-        self.n_tiles = int(self.tiles.max()) + 1
         segments = [seg.template for seg in reference.rest.segments] or [reference.template]
         self.refs = [
             (
@@ -142,7 +263,7 @@ class _FrameReducer:
                 PlaneLeveller(tmpl, tilt=settings.template.level_tilt),
                 FlowTracker(
                     tmpl,
-                    self.mask,
+                    reference.mask,
                     pixel_size_um=px_um,
                     method=f.method,
                     preset=f.preset,
@@ -155,27 +276,17 @@ class _FrameReducer:
             for tmpl in segments
         ]
 
-    def __call__(self, frame: np.ndarray, drift: np.ndarray | None, ref: int):
+    def fields(self, frame: np.ndarray, drift: np.ndarray | None, ref: int):
+        """``(flow (Y, X, 2) px, frame - template (Y, X) nm, shift (2,), clipped)``."""
         template, leveller, tracker = self.refs[ref]
         levelled = leveller.level(frame)
-        remove = drift if self.remove_rigid else np.zeros(2)
-        meas = tracker.measure(levelled, rigid_shift_px=remove)
+        meas = tracker.measure(
+            levelled, rigid_shift_px=drift if self.remove_rigid else np.zeros(2)
+        )
         shift = meas.rigid_shift_px if self.remove_rigid else meas.estimated_shift_px
-        magnitude = np.hypot(meas.flow_px[..., 0], meas.flow_px[..., 1]) * self.px_um
         used = meas.rigid_shift_px
         aligned = shift_image(levelled, -used) if np.hypot(*used) > _MIN_ALIGN_PX else levelled
-        square = (aligned - template) ** 2
-        inside = square[self.mask]
-        n1 = self.n_labels + 1
-        return (
-            meas.displacement_um,
-            shift,
-            float(np.nanmean(inside)) if np.isfinite(inside).any() else np.nan,
-            meas.clipped_fraction,
-            tile_means(np.where(self.mask, magnitude, np.nan), self.tiles, self.n_tiles),
-            tile_means(magnitude, self.labels, n1)[1:],
-            tile_means(square, self.labels, n1)[1:],
-        )
+        return meas.flow_px, aligned - template, shift, meas.clipped_fraction
 
 
 def measure_frames(
@@ -187,7 +298,7 @@ def measure_frames(
     workers: int | None = None,
     progress: bool = False,
 ) -> FrameSignals:
-    """The per-frame pass: every frame levelled, tracked and reduced.
+    """The per-frame pass: every frame levelled, tracked and projected onto the patterns.
 
     Parameters
     ----------
@@ -217,78 +328,141 @@ def measure_frames(
     -----
     Drift: with a textured cell-free background the rigid shift of each frame is the median
     flow there. Without one it is the median flow over the cells, which is unbiased only
-    where they do not contract: so it is measured at the resting frames (done first) and
-    interpolated linearly in time for the others.
+    where they do not contract: so it is measured at resting frames (round 1) and
+    interpolated linearly in time for the others. Projections: see
+    :mod:`beatlab.signals.projection`; a pattern frame is projected onto the pattern built
+    without it (leave-one-out), so its own noise does not bias it.
     """
     from tqdm.auto import tqdm
 
     n = times_s.size
     px_um = float(source.pixel_size_um)
-    reduce = _FrameReducer(reference, settings, px_um)
+    reducer = _FrameReducer(reference, settings, px_um)
     rest = reference.rest
+    tile_px = max(4, round(settings.maps.tile_um / px_um))
+    tiles = tile_labels(reference.mask.shape, tile_px=tile_px)
+    n_tiles = int(tiles.max()) + 1
+    cells = _cell_index(reference, tiles, n_tiles)
+    # patterns blind to translation and OPD offset within each region (labels, rest of mask)
+    on_used = np.where(reference.labels > 0, reference.labels, 0).ravel()[cells.pixels]
+    accumulator = PatternAccumulator(cells, groups=on_used)
     frame_ref = np.maximum(rest.segment_of(times_s), 0)
-    disp = np.full(n, np.nan)
     shifts = np.zeros((n, 2))
-    mean_sq = np.full(n, np.nan)
     clipped = np.zeros(n)
-    tile_tr = np.full((n, reduce.n_tiles), np.nan, dtype=np.float32)
-    label_disp = np.full((reduce.n_labels, n), np.nan)
-    label_sq = np.full((reduce.n_labels, n), np.nan)
+    field_dot = np.zeros((n, cells.n_cells), dtype=np.float32)
+    opd_dot = np.zeros((n, cells.n_cells), dtype=np.float32)
+    field_sq, opd_sq = {}, {}
+    template_k = _template_membership(rest, n)
+    in_template: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    finite = np.zeros(n, dtype=bool)
 
-    rest_idx = np.flatnonzero(rest.rest)
     drift_reference = reference.drift_reference
+    drift_frames = _spread(np.flatnonzero(rest.rest), MAX_DRIFT_FRAMES)
     interpolate = (
-        drift_reference == "cell median" and rest.method == "rest-frames" and rest_idx.size >= 2
+        drift_reference == "cell median"
+        and rest.method == "rest-frames"
+        and drift_frames.size >= 2
     )
     if interpolate:
         drift_reference = "cell median at rest frames, interpolated"
+    pattern_idx, pattern_w = _pattern_frames(rest)
+    weight_of = dict(zip(pattern_idx.tolist(), pattern_w.tolist(), strict=True))
+    drift_px: np.ndarray | None = None
+    state: dict = {}
+
+    def drift_only(i, frame):
+        _, _, shift, _ = reducer.fields(frame, None, frame_ref[i])
+        shifts[i] = shift
+
+    def pattern(i, frame):
+        flow, diff, _, _ = reducer.fields(frame, _given(i), frame_ref[i])
+        accumulator.add(i, flow, diff, weight_of[i])
+
+    def project(i, frame):
+        flow, diff, shift, clip = reducer.fields(frame, _given(i), frame_ref[i])
+        f = cells.gather(flow)
+        d = cells.gather(diff)
+        pat = state["patterns"]
+        field_dot[i] = cells.cell_sums((f * pat.field_perp).sum(axis=1))
+        opd_dot[i] = cells.cell_sums(d * pat.opd_perp)
+        if i in weight_of or template_k[i] > 1:
+            own_f, own_d = (cells.cell_sums(v) for v in pat.own_terms(f, d))
+            if i in weight_of:
+                field_sq[i], opd_sq[i] = own_f, own_d
+            if template_k[i] > 1:
+                in_template[i] = (own_f, own_d)
+        shifts[i], clipped[i] = shift, clip
+        inside = flow[reference.mask]
+        finite[i] = np.isfinite(inside).any()
+
+    def _given(i):
+        return None if drift_px is None else drift_px[i]
+
+    rounds = [(pattern_idx, pattern), (np.arange(n), project)]
+    if interpolate:
+        rounds.insert(0, (drift_frames, drift_only))
+    total = sum(idx.size for idx, _ in rounds)
     workers = workers or min(4, os.cpu_count() or 1)
     with (
         ThreadPoolExecutor(max_workers=workers) as pool,
-        tqdm(total=n, desc="analysing", unit="frame", disable=not progress, leave=False) as bar,
+        tqdm(
+            total=total, desc="analysing", unit="frame", disable=not progress, leave=False
+        ) as bar,
     ):
-
-        def run(keep, drifts):
-            for idx, frames in source.select_chunks(keep):
-                given = [None if drifts is None else drifts[i] for i in idx]
-                results = pool.map(reduce, frames, given, frame_ref[idx])
-                for i, res in zip(idx, results, strict=True):
-                    (disp[i], shifts[i], mean_sq[i], clipped[i], tile_tr[i], label_disp[:, i],
-                     label_sq[:, i]) = res  # fmt: skip
-                bar.update(len(idx))
-
-        done = np.zeros(n, dtype=bool)
-        drift_px = None
-        if interpolate:
-            done[rest_idx] = True
-            run(done, None)
-            drift_px = np.stack(
-                [np.interp(times_s, times_s[rest_idx], shifts[rest_idx, c]) for c in (0, 1)],
-                axis=1,
-            )
-        run(~done, drift_px)
-    if not np.isfinite(disp).any():
+        for idx, work in rounds:
+            if work is project:
+                state["patterns"] = accumulator.patterns()
+            keep = np.zeros(n, dtype=bool)
+            keep[idx] = True
+            for chunk, frames in source.select_chunks(keep):
+                list(pool.map(work, chunk, frames))
+                bar.update(len(chunk))
+            if work is drift_only:
+                drift_px = interpolate_drift(times_s, idx, shifts[idx])
+    if not finite.any():
         raise InputError(
             f"{source.recording.source}: every frame is NaN inside the cell mask; nothing to "
             "analyse"
         )
-    sigma2, noise_var = rest_noise_variance(rest, reference.mask, n)
+    _share_template_noise(field_dot, opd_dot, in_template, template_k)
+    sums = state["patterns"].sums(
+        cells,
+        field_dot,
+        opd_dot,
+        field_sq,
+        opd_sq,
+        {k: v for k, v in weight_of.items() if k in field_sq},
+    )
+    segment = np.maximum(rest.segment_of(times_s), 0)
+    traces = [
+        zero_at_rest(t, rest.rest, segment)
+        for t in (
+            *project_groups(sums, cells.families["mask"]),
+            project_groups(sums, cells.families["tiles"])[0],
+            project_groups(sums, cells.families["labels"])[0],
+        )
+    ]
+    for trace in traces:
+        trace[~finite] = np.nan
+    mask_disp, mask_opd, tile_disp, label_disp = traces
+    n_labels = int(reference.labels.max())
     return FrameSignals(
-        displacement_um=disp,
-        opd_change_nm=opd_change_trace(mean_sq, noise_var),
+        displacement_um=mask_disp[:, 0] * px_um,
+        opd_change_nm=mask_opd[:, 0],
         drift_px=shifts,
         clipped_fraction=clipped,
-        expected_noise_var_nm2=noise_var,
-        frame_noise_nm=float(np.sqrt(sigma2)) if sigma2 > 0 else None,
-        tile_traces_um=tile_tr,
-        tile_grid=tile_grid_shape(reference.mask.shape, tile_px=reduce.tile_px),
-        tile_um=reduce.tile_px * px_um,
-        tile_coverage=tile_means(reference.mask.astype(np.float32), reduce.tiles, reduce.n_tiles),
-        label_displacement_um=label_disp,
-        label_mean_square_nm2=label_sq,
-        label_area_px=np.bincount(reference.labels.ravel(), minlength=reduce.n_labels + 1).astype(
-            float
-        ),
+        frame_noise_nm=rest_noise_nm(rest, reference.mask),
+        tile_traces_um=(tile_disp * px_um).astype(np.float32),
+        tile_grid=tile_grid_shape(reference.mask.shape, tile_px=tile_px),
+        tile_um=tile_px * px_um,
+        tile_coverage=tile_means(reference.mask.astype(np.float32), tiles, n_tiles),
+        label_displacement_um=(label_disp[:, :n_labels] * px_um).T,
+        sums=sums,
+        cells=cells,
+        pixel_size_um=px_um,
+        pattern_frames=pattern_idx,
+        rest_frames=np.asarray(rest.rest, dtype=bool),
+        segment=segment,
         drift_reference=drift_reference if settings.flow.rigid != "none" else "none",
-        template_clipped_fraction=float(reduce.refs[0][2].template_clipped_fraction),
+        template_clipped_fraction=float(reducer.refs[0][2].template_clipped_fraction),
     )

@@ -107,10 +107,10 @@ def analyze_regions(
     )
     results = []
     beats, traces = [], []
-    for number, (members, trace) in enumerate(zip(found.members, found.traces, strict=True), 1):
-        opd = frames.region_opd_change_nm(members)
+    for number, members in enumerate(found.members, 1):
+        trace, opd = frames.label_union_traces(members)
         res = analyze_trace(
-            np.asarray(trace, dtype=float),
+            trace,
             opd,
             times_s,
             velocity=settings.velocity,
@@ -118,6 +118,7 @@ def analyze_regions(
             rhythm=settings.rhythm,
             start_s=start_s,
             end_s=end_s,
+            pattern_frames=frames.pattern_frames,
         )
         results.append(res)
         beats.append(res.beats.assign(region=number)[["region", *res.beats.columns]])

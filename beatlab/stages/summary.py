@@ -19,11 +19,12 @@ _SOURCES = ("format", "fps_source", "pixel_size_source", "wavelength_source", "k
 
 def _quality(trace: TraceResult, frames: FrameSignals, reference: Reference, recording) -> dict:
     rest = reference.rest
-    drift_um = frames.drift_px - frames.drift_px[0]
+    drift_um = (frames.drift_px - frames.drift_px[0]) * frames.pixel_size_um
     finite = np.isfinite(drift_um).all(axis=1)
     return {
         "snr": trace.summary["snr"],
         "trace_noise_um": trace.summary["trace_noise_um"],
+        "pattern_snr": trace.summary["pattern_snr"],
         "drift_max_um": float(np.max(np.hypot(*drift_um[finite].T))) if finite.any() else None,
         "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
         "masked_fraction": reference.cells.masked_fraction,
@@ -107,7 +108,8 @@ def summarize(
     dict
         JSON-ready (NaN as None, numpy scalars as Python numbers).
     """
-    metrics = {k: v for k, v in trace.summary.items() if k not in ("snr", "trace_noise_um")}
+    moved = ("snr", "trace_noise_um", "pattern_snr")  # quality, not results
+    metrics = {k: v for k, v in trace.summary.items() if k not in moved}
     return json_ready(
         {
             **metrics,

@@ -16,7 +16,11 @@ from beatlab.rhythm import summarize_rhythm
 from beatlab.settings import BeatSettings, RhythmSettings, VelocitySettings
 from beatlab.signals.traces import velocity_trace
 
-__all__ = ["TraceResult", "analyze_trace"]
+__all__ = ["MIN_PATTERN_SNR", "TraceResult", "analyze_trace"]
+
+#: Beats are looked for only when the trace at the pattern frames stands this many noise SDs
+#: above rest: below it the "pattern" is noise (no contraction in the recording or region).
+MIN_PATTERN_SNR = 3.0
 
 
 @dataclass(frozen=True)
@@ -32,7 +36,8 @@ class TraceResult:
     summary : dict
         :func:`beatlab.rhythm.summarize_rhythm` keys, then ``snr`` (median displacement
         amplitude / trace noise SD; None without beats) and ``trace_noise_um`` (robust noise
-        SD of the displacement trace, um).
+        SD of the displacement trace, um) and ``pattern_snr`` (median of the trace over the
+        pattern frames / trace noise SD; None when no pattern frames were given).
     average_beat : pandas.DataFrame
         Ensemble average aligned at onset (:func:`beatlab.beats.average_beat`).
     """
@@ -61,6 +66,7 @@ def analyze_trace(
     rhythm: RhythmSettings,
     start_s: float,
     end_s: float,
+    pattern_frames: np.ndarray | None = None,
 ) -> TraceResult:
     """Velocity, beats with their landmarks, rhythm indices and average beat of one trace.
 
@@ -76,6 +82,11 @@ def analyze_trace(
         ``[velocity]``, ``[beats]`` and ``[rhythm]``.
     start_s, end_s : float
         Start and end of the recording, s (for pauses at the edges).
+    pattern_frames : ndarray of int, optional
+        The frames that built the contraction pattern the trace is a projection onto. Beats
+        are looked for only when the trace at these frames stands out of the noise
+        (``pattern_snr`` >= :data:`MIN_PATTERN_SNR`); otherwise no contraction was found and
+        the pattern is noise.
 
     Returns
     -------
@@ -88,15 +99,23 @@ def analyze_trace(
         window_ms=velocity.window_ms,
         polyorder=velocity.polyorder,
     )
-    peaks = detect_beats(work, times_s, **beats.detect_options())
+    noise = float(estimate_noise(work))
+    pattern_snr = None
+    if pattern_frames is not None and len(pattern_frames):
+        level = float(np.nanmedian(work[np.asarray(pattern_frames, dtype=int)]))
+        pattern_snr = level / noise if noise > 0 else None
+    if pattern_snr is not None and pattern_snr < MIN_PATTERN_SNR:
+        peaks = np.zeros(0, dtype=int)
+    else:
+        peaks = detect_beats(work, times_s, **beats.detect_options())
     table = measure_beats(
         work, times_s, peaks, velocity=vel, opd_change=opd_change_nm, **beats.measure_options()
     )
     summary = summarize_rhythm(table, start_s=start_s, end_s=end_s, **rhythm.options())
-    noise = float(estimate_noise(work))
     amplitude = summary.get("displacement_um")
     summary["snr"] = float(amplitude) / noise if amplitude is not None and noise > 0 else None
     summary["trace_noise_um"] = noise
+    summary["pattern_snr"] = pattern_snr
     average = average_beat(
         times_s,
         {"displacement_um": work, "velocity_um_s": vel, "opd_change_nm": opd_change_nm},

@@ -6,7 +6,13 @@ landmark definitions.
 """
 
 from beatlab.synth._checks import CONTRACTIONS, KINDS
-from beatlab.synth._schedule import EAD_PROMINENCE, beat_segments, evaluate_activation
+from beatlab.synth._schedule import (
+    EAD_PROMINENCE,
+    EAD_SHAPES,
+    RELAXATIONS,
+    beat_segments,
+    evaluate_activation,
+)
 from beatlab.synth._simulate import SyntheticRecording, simulate_recording
 from beatlab.synth._truth import BEAT_COLUMNS, TRUTH_DT_S
 from beatlab.synth._write import write_simulation
@@ -15,7 +21,9 @@ __all__ = [
     "BEAT_COLUMNS",
     "CONTRACTIONS",
     "EAD_PROMINENCE",
+    "EAD_SHAPES",
     "KINDS",
+    "RELAXATIONS",
     "TRUTH_DT_S",
     "SyntheticRecording",
     "beat_segments",

@@ -8,6 +8,7 @@ import numpy as np
 
 from beatlab.errors import ConfigError
 from beatlab.synth._scene import LAYOUTS
+from beatlab.synth._schedule import EAD_SHAPES, RELAXATIONS
 
 __all__ = ["CONTRACTIONS", "KINDS", "as_generator", "validate_arguments"]
 
@@ -82,8 +83,8 @@ def validate_arguments(p):
     q["ibi_cv"] = _check_number("ibi_cv", p["ibi_cv"], lo=0, hi=1)
     q["cluster_delay_s"] = _check_number("cluster_delay_s", p["cluster_delay_s"], lo=0, unit=" s")
     q["strain"] = _check_number("strain", p["strain"], lo=0, hi=0.25)
-    q["ead_level"] = _check_number("ead_level", p["ead_level"], lo=0.3, hi=0.9)
     q["overshoot"] = _check_number("overshoot", p["overshoot"], lo=0, hi=0.15)
+    _check_beat_shape(p, q)
     for name in ("noise_nm", "correlated_noise_nm", "jitter_nm", "drift_nm"):
         q[name] = _check_number(name, p[name], lo=0, unit=" nm")
     q["correlated_noise_um"] = _check_number(
@@ -144,6 +145,27 @@ def validate_arguments(p):
             raise _bad("ead_beats", p["ead_beats"], "expected 0-based beat indices", "use >= 0")
         q["ead_beats"] = eb
     return q
+
+
+def _check_beat_shape(p, q):
+    """Relaxation and EAD shape arguments, checked into ``q``."""
+    for name, choices in (("relaxation", RELAXATIONS), ("ead_shape", EAD_SHAPES)):
+        if p[name] not in choices:
+            raise _bad(name, p[name], f"expected one of {choices}", "pick one of those")
+    for name in ("relax_tau_s", "ead_bump_sigma_s"):
+        q[name] = _check_number(name, p[name], lo=0, lo_open=True, unit=" s")
+    q["ead_bump_delay_s"] = _check_number(
+        "ead_bump_delay_s", p["ead_bump_delay_s"], lo=0, unit=" s"
+    )
+    if p["ead_shape"] == "bump":
+        q["ead_level"] = _check_number("ead_level", p["ead_level"], lo=0, lo_open=True, hi=0.9)
+    else:
+        q["ead_level"] = _check_number("ead_level", p["ead_level"], lo=0.3, hi=0.9)
+    if p["relaxation"] == "exponential" and q["overshoot"] > 0:
+        raise ConfigError(
+            f"overshoot: {p['overshoot']!r} needs relaxation='cosine' (an exponential tail "
+            "never passes rest); pass overshoot=0 or relaxation='cosine'"
+        )
 
 
 def as_generator(rng):

@@ -49,12 +49,18 @@ class ContractionField:
 
 
 def _taper(r, core, outer):
-    """Raised-cosine taper f(r) and its derivative f'(r)."""
+    """Raised-cosine taper f(r) and its derivative f'(r).
+
+    1 inside the core, 0 from the outer radius on; the cosines are evaluated only in the band
+    between (the same values as clipping ``z`` to [0, 1] everywhere, at a fraction of the cost).
+    """
     width = outer - core
-    z = np.clip((r - core) / width, 0.0, 1.0)
-    f = 0.5 * (1.0 + np.cos(np.pi * z))
     band = (r > core) & (r < outer)
-    df = np.where(band, -0.5 * np.pi / width * np.sin(np.pi * z), 0.0)
+    f = (r <= core).astype(np.float64)
+    df = np.zeros(np.shape(r), dtype=np.float64)
+    z = (r[band] - core) / width
+    f[band] = 0.5 * (1.0 + np.cos(np.pi * z))
+    df[band] = -0.5 * np.pi / width * np.sin(np.pi * z)
     return f, df
 
 

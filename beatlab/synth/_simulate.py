@@ -129,6 +129,11 @@ def simulate_recording(
     ead_beats=None,
     ead_level=0.5,
     overshoot=0.0,
+    relaxation="cosine",
+    relax_tau_s=0.13,
+    ead_shape="step",
+    ead_bump_sigma_s=0.045,
+    ead_bump_delay_s=0.32,
     noise_nm=1.0,
     correlated_noise_nm=0.0,
     correlated_noise_um=2.0,
@@ -174,7 +179,8 @@ def simulate_recording(
     rise_s : float
         Onset-to-peak time of the activation in s (half-cosine rise).
     relax_s : float
-        Peak-to-rest time of one relaxation step in s (half-cosine fall).
+        Peak-to-rest time of one half-cosine relaxation step in s (with exponential relaxation
+        it only sets the first fall of a step-shaped EAD).
     strain : float
         Fractional shortening inside a cluster's core at activation 1.
     contraction : {'isotropic', 'uniaxial'}
@@ -184,13 +190,33 @@ def simulate_recording(
     amplitude_pattern : sequence of float, optional
         Per-beat activation multipliers, cycled (``(1.0, 0.55)``: alternans).
     ead_beats : sequence of int, optional
-        0-based beat indices that get an EAD-like second step: relaxation to
-        ``ead_level - 0.25``, re-rise to ``ead_level``, then relaxation to rest.
+        0-based beat indices that get an EAD-like after-contraction of shape ``ead_shape``.
     ead_level : float
-        Height of the EAD-like secondary maximum as a fraction of the amplitude (0.3-0.9).
+        For ``ead_shape='step'``: the level of the secondary maximum as a fraction of the
+        amplitude (0.3-0.9). For ``'bump'``: the height of the Gaussian, added to the relaxing
+        activation, as a fraction of the amplitude (0-0.9).
     overshoot : float
         Relaxation past rest to ``-overshoot`` of the amplitude (cells lengthen briefly;
         ``|displacement|`` shows a small bump below 20 % of the amplitude: not an EAD).
+        Half-cosine relaxation only.
+    relaxation : {'cosine', 'exponential'}
+        Shape of the final relaxation: a half-cosine fall over ``relax_s``, or an exponential
+        decay ``exp(-t / relax_tau_s)`` from the peak (or from the step EAD's secondary
+        maximum). The exponential peak is cornered: slope 0 before it, ``-1 / relax_tau_s``
+        after it (times the amplitude).
+    relax_tau_s : float
+        Time constant of the exponential relaxation in s (``relaxation='exponential'``).
+    ead_shape : {'step', 'bump'}
+        EAD-like after-contraction: ``'step'`` relaxes to ``ead_level - 0.25``, re-rises to
+        ``ead_level`` (half-cosines), then relaxes to rest; ``'bump'`` adds a smooth Gaussian
+        of height ``ead_level`` and SD ``ead_bump_sigma_s`` centred ``ead_bump_delay_s`` after
+        the end of the rise. Either way the truth's ``secondary_peak`` is decided on the
+        noise-free trace by the design notes' definition, so a bump too small or too late to
+        be a secondary peak is not one.
+    ead_bump_sigma_s : float
+        Standard deviation of the Gaussian bump in s.
+    ead_bump_delay_s : float
+        Time from the end of the rise (the peak of the activation) to the bump's centre in s.
     noise_nm : float
         RMS of per-pixel white OPD noise.
     correlated_noise_nm, correlated_noise_um : float
@@ -287,6 +313,11 @@ def simulate_recording(
         ead_level=p["ead_level"],
         overshoot=p["overshoot"],
         rng=rng_beats,
+        relaxation=p["relaxation"],
+        relax_tau_s=p["relax_tau_s"],
+        ead_shape=p["ead_shape"],
+        ead_bump_sigma_s=p["ead_bump_sigma_s"],
+        ead_bump_delay_s=p["ead_bump_delay_s"],
     )
     t_dense = np.linspace(0.0, t_end, round(t_end / TRUTH_DT_S) + 1)
     act_dense = np.array([evaluate_activation(t_dense, s) for s in schedules])
@@ -354,7 +385,6 @@ def simulate_recording(
             t_dense,
             region_w[c] @ np.abs(act_dense),
             schedules[c].onsets_s,
-            schedules[c].ead,
             trace=trace_of(region_w[c]),
             edge_s=1.0 / p["fps"],
         )
@@ -377,7 +407,6 @@ def simulate_recording(
             t_dense,
             d_dense,
             schedules[0].onsets_s,
-            schedules[0].ead,
             trace=trace_of(w_mask),
             edge_s=1.0 / p["fps"],
         )
@@ -463,6 +492,9 @@ def simulate_recording(
             "displacement_um": "mean over the true rest mask of |sum_c a_c(t) u_c(x0)| (um), "
             "noise-free, stage drift excluded",
             "beat_onsets": "schedule onsets are activation onsets (start of the rise)",
+            "secondary_peak": "a local maximum of the noise-free trace between peak and end "
+            "with prominence >= 10 % of the amplitude, standing above 20 % of the amplitude; "
+            "schedules[].ead marks the beats given an after-contraction",
             "truth_dt_s": TRUTH_DT_S,
             "field_components": "displacement_field_um[0] along rows (y), [1] along columns (x)",
         },

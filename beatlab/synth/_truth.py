@@ -9,7 +9,15 @@ from __future__ import annotations
 import numpy as np
 from scipy import optimize
 
-__all__ = ["BEAT_COLUMNS", "TRUTH_DT_S", "beat_truth", "summarize_truth"]
+__all__ = [
+    "BEAT_COLUMNS",
+    "SECONDARY_MIN_LEVEL",
+    "SECONDARY_PROMINENCE",
+    "TRUTH_DT_S",
+    "beat_truth",
+    "secondary_peak",
+    "summarize_truth",
+]
 
 #: Time step of the dense truth grid (s).
 TRUTH_DT_S = 1e-4
@@ -17,6 +25,10 @@ TRUTH_DT_S = 1e-4
 _BASELINE_WINDOW_S = 0.100
 #: Relative IBI deviation from the median above which a beat is irregular.
 _IRREGULAR_FRACTION = 0.25
+#: Secondary peak: least prominence, and least height of the maximum, as fractions of the
+#: amplitude above the baseline.
+SECONDARY_PROMINENCE = 0.1
+SECONDARY_MIN_LEVEL = 0.2
 
 BEAT_COLUMNS = (
     "beat",
@@ -85,14 +97,16 @@ def _peak(t, d, i, trace):
     parabola through samples i-1, i, i+1.
     """
     if trace is not None:
+        # searched as an offset from t[i]: the bounded method's tolerance grows with |x|, and a
+        # cornered peak (exponential relaxation) converges only to that tolerance
         res = optimize.minimize_scalar(
-            lambda x: -trace(x),
-            bounds=(t[i - 1], t[i + 1]),
+            lambda u: -trace(t[i] + u),
+            bounds=(t[i - 1] - t[i], t[i + 1] - t[i]),
             method="bounded",
-            options={"xatol": 1e-10},
+            options={"xatol": 1e-12},
         )
         if -res.fun >= d[i]:
-            return float(res.x), float(-res.fun)
+            return float(t[i] + res.x), float(-res.fun)
         return float(t[i]), float(d[i])
     y0, y1, y2 = d[i - 1], d[i], d[i + 1]
     den = y0 - 2 * y1 + y2
@@ -107,7 +121,49 @@ def _diff(a, b):
     return None if a is None or b is None else float(a - b)
 
 
-def beat_truth(t, d, onsets_s, ead, *, trace=None, edge_s=0.0):
+def secondary_peak(d, base, amp):
+    """Whether a trace segment from a beat's peak to its end holds a secondary peak.
+
+    Parameters
+    ----------
+    d : ndarray (N,)
+        The dense noise-free trace from the beat's peak sample to its end (the downstroke
+        crossing of 10 %, or the next beat's onset when the trace never falls that far).
+    base, amp : float
+        The beat's baseline and amplitude.
+
+    Returns
+    -------
+    bool
+        True when a local maximum inside ``d`` stands at least :data:`SECONDARY_MIN_LEVEL` of
+        the amplitude above the baseline and its prominence is at least
+        :data:`SECONDARY_PROMINENCE` of the amplitude (the design notes' definition).
+
+    Notes
+    -----
+    Prominence is the topographic one: the maximum minus the higher of the lowest values on
+    either side, each side taken up to the first sample above the maximum or the segment end.
+    """
+    d = np.asarray(d, dtype=float)
+    if d.size < 3:
+        return False
+    inner = np.flatnonzero((d[1:-1] > d[:-2]) & (d[1:-1] >= d[2:])) + 1
+    for m in inner:
+        v = d[m]
+        if v < base + SECONDARY_MIN_LEVEL * amp:
+            continue
+        above_left = np.flatnonzero(d[:m] > v)
+        lo = above_left[-1] + 1 if above_left.size else 0
+        above_right = np.flatnonzero(d[m + 1 :] > v)
+        hi = m + 1 + above_right[0] if above_right.size else d.size
+        left_min = d[lo:m].min() if m > lo else v
+        right_min = d[m + 1 : hi].min() if hi > m + 1 else v
+        if v - max(left_min, right_min) >= SECONDARY_PROMINENCE * amp:
+            return True
+    return False
+
+
+def beat_truth(t, d, onsets_s, *, trace=None, edge_s=0.0):
     """Per-beat landmarks of a dense noise-free trace.
 
     Parameters
@@ -119,8 +175,6 @@ def beat_truth(t, d, onsets_s, ead, *, trace=None, edge_s=0.0):
     onsets_s : ndarray (K,)
         Activation onsets of the schedule that drives this trace; beat ``k`` is searched for
         between onset ``k`` and onset ``k + 1``.
-    ead : ndarray (K,) of bool
-        Beats given an EAD-like second step (the ``secondary_peak`` truth).
     trace : callable, optional
         ``trace(t_s) -> um``, the continuous trace that ``d`` samples; refines peaks and level
         crossings beyond the grid (continuous maximum, root of ``trace - level``). Without it,
@@ -134,7 +188,9 @@ def beat_truth(t, d, onsets_s, ead, *, trace=None, edge_s=0.0):
     -------
     list of dict
         One dict per beat with a peak inside the recording, keys :data:`BEAT_COLUMNS`; undefined
-        values are None.
+        values are None. ``secondary_peak`` is decided on ``d`` by :func:`secondary_peak`,
+        between the peak and ``end_s`` (or the stop of the search when the trace never falls
+        to 10 %), whatever shape the schedule gave the beat.
     """
     n = t.size
     dt = t[1] - t[0]
@@ -192,6 +248,8 @@ def beat_truth(t, d, onsets_s, ead, *, trace=None, edge_s=0.0):
         end_s = _down_crossing(t, d, base + 0.1 * amp, ip, i1, trace)
         down50 = _down_crossing(t, d, base + 0.5 * amp, ip, i1, trace)
         ibi = beat["peak_s"] - beats[b - 1]["peak_s"] if b > 0 else None
+        i_end = i1 if end_s is None else min(int(np.ceil((end_s - t[0]) / dt)), i1)
+        secondary = secondary_peak(d[ip : i_end + 1], base, amp)
         rows.append(
             {
                 "beat": b + 1,
@@ -207,7 +265,7 @@ def beat_truth(t, d, onsets_s, ead, *, trace=None, edge_s=0.0):
                 "displacement_um": float(amp),
                 "contraction_velocity_um_s": float(np.max(vel[beat["prev_ip"] : ip + 1])),
                 "relaxation_velocity_um_s": float(-np.min(vel[ip : i1 + 1])),
-                "secondary_peak": bool(ead[beat["k"]]),
+                "secondary_peak": bool(secondary),
                 "irregular": False,
                 "baseline_um": float(base),
             }

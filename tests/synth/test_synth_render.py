@@ -253,6 +253,13 @@ def test_white_correlated_jitter_and_drift_noise_levels():
         ({"shape_px": (8, 8)}, "shape_px"),
         ({"n_clusters": 40}, "n_clusters"),
         ({"stage_drift_um": (1.0,)}, "stage_drift_um"),
+        ({"relaxation": "linear"}, "relaxation"),
+        ({"relaxation": "exponential", "relax_tau_s": 0}, "relax_tau_s"),
+        ({"relaxation": "exponential", "overshoot": 0.05}, "overshoot"),
+        ({"ead_shape": "spike"}, "ead_shape"),
+        ({"ead_shape": "bump", "ead_level": 0.0}, "ead_level"),
+        ({"ead_shape": "bump", "ead_bump_sigma_s": -0.01}, "ead_bump_sigma_s"),
+        ({"ead_shape": "bump", "ead_bump_delay_s": -0.1}, "ead_bump_delay_s"),
     ],
 )
 def test_bad_arguments_raise_config_error_naming_the_parameter(kwargs, name):

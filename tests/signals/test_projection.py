@@ -1,0 +1,140 @@
+"""Projection onto the contraction pattern: exact on a pattern, zero-mean on noise."""
+
+import numpy as np
+import pytest
+from scipy import ndimage
+
+from beatlab.errors import InputError
+from beatlab.signals.projection import (
+    CellIndex,
+    PatternAccumulator,
+    project_groups,
+)
+
+SHAPE = (40, 48)
+
+
+def _pattern(rng):
+    """A smooth random vector field (px) that the code under test knows nothing about."""
+    field = np.stack([ndimage.gaussian_filter(rng.normal(size=SHAPE), 5) for _ in range(2)], -1)
+    return field / np.abs(field).max()
+
+
+def _index():
+    halves = np.where(np.arange(SHAPE[1])[None, :] < SHAPE[1] // 2, 0, 1) * np.ones(SHAPE, int)
+    return CellIndex.from_maps({"mask": (np.zeros(SHAPE, int), 1), "halves": (halves, 2)})
+
+
+def _run(index, fields, diffs, pattern_frames, weights):
+    acc = PatternAccumulator(index)
+    for k, w in zip(pattern_frames, weights, strict=True):
+        acc.add(k, fields[k], diffs[k], w)
+    pat = acc.patterns()
+    gather = [(index.gather(f), index.gather(d)) for f, d in zip(fields, diffs, strict=True)]
+    own = {k: pat.own_terms(*gather[k]) for k in pattern_frames}
+    sums = pat.sums(
+        index,
+        np.array([index.cell_sums((f * pat.field_perp).sum(1)) for f, _ in gather]),
+        np.array([index.cell_sums(d * pat.opd_perp) for _, d in gather]),
+        {k: index.cell_sums(v[0]) for k, v in own.items()},
+        {k: index.cell_sums(v[1]) for k, v in own.items()},
+        dict(zip(pattern_frames, weights, strict=True)),
+    )
+    return sums
+
+
+def test_a_field_that_is_a_multiple_of_the_pattern_reads_its_mean_magnitude():
+    rng = np.random.default_rng(0)
+    p = _pattern(rng)
+    opd_p = ndimage.gaussian_filter(rng.normal(size=SHAPE), 1.5) * 20
+    k = np.concatenate([np.zeros(10), np.linspace(0, 1, 10), np.linspace(1, 0, 10)])
+    fields = [kk * p for kk in k]
+    diffs = [kk * opd_p for kk in k]
+    top = [18, 19, 20, 21]
+    sums = _run(_index(), fields, diffs, top, [1.0, 2.0, 2.0, 1.0])
+    disp, opd = project_groups(sums, _index().families["mask"])
+    # closed form: k_t times the mean magnitude of the pattern / the RMS of the OPD pattern
+    expected = k * np.hypot(p[..., 0], p[..., 1]).mean()
+    np.testing.assert_allclose(disp[:, 0], expected, atol=1e-9)
+    np.testing.assert_allclose(opd[:, 0], k * np.sqrt((opd_p**2).mean()), atol=1e-6)
+
+
+def test_noise_projects_to_zero_mean_where_the_magnitude_has_a_floor():
+    rng = np.random.default_rng(1)
+    p = _pattern(rng)
+    n, sigma = 400, 0.05
+    k = np.where(np.arange(n) % 40 < 8, 1.0, 0.0)
+    fields = [kk * p + rng.normal(0, sigma, (*SHAPE, 2)) for kk in k]
+    diffs = [np.zeros(SHAPE) + rng.normal(0, 1, SHAPE) for _ in k]
+    top = list(np.flatnonzero(k))
+    sums = _run(_index(), fields, diffs, top, [1.0] * len(top))
+    disp, _ = project_groups(sums, _index().families["mask"])
+    rest = disp[k == 0, 0]
+    at_rest = [f for f, kk in zip(fields, k, strict=True) if kk == 0]
+    floor = np.mean([np.hypot(f[..., 0], f[..., 1]).mean() for f in at_rest])
+    # zero-mean at rest (within 4 standard errors), while the magnitude sits at its Rayleigh
+    # floor sigma sqrt(pi/2) (a fact of the Rayleigh distribution)
+    assert abs(rest.mean()) < 4 * rest.std() / np.sqrt(rest.size)
+    assert floor == pytest.approx(sigma * np.sqrt(np.pi / 2), rel=0.02)
+    assert abs(rest.mean()) < 0.05 * floor
+    # the pattern frames read their own amplitude without their own noise's bias
+    contracted = disp[k == 1, 0]
+    truth = np.hypot(p[..., 0], p[..., 1]).mean()
+    assert contracted.mean() == pytest.approx(truth, rel=0.02)
+
+
+def test_leave_one_out_removes_the_self_projection_bias():
+    rng = np.random.default_rng(2)
+    n = 60
+    fields = [rng.normal(0, 1, (*SHAPE, 2)) for _ in range(n)]
+    diffs = [rng.normal(0, 1, SHAPE) for _ in range(n)]
+    top = list(range(0, n, 3))
+    sums = _run(_index(), fields, diffs, top, [1.0] * len(top))
+    disp, opd = project_groups(sums, _index().families["mask"])
+    own = disp[top, 0]
+    # pure noise: frames that built the pattern read as much as the others, i.e. zero-mean
+    assert abs(own.mean()) < 4 * own.std() / np.sqrt(own.size)
+    assert abs(opd[top, 0].mean()) < 4 * opd[top, 0].std() / np.sqrt(len(top))
+
+
+def test_groups_add_up_and_unions_are_projections_of_the_union():
+    # (the patterns are made translation-blind over the whole mask, not per half: the
+    # halves are read exactly all the same)
+    rng = np.random.default_rng(3)
+    p = _pattern(rng)
+    fields = [kk * p for kk in (0.0, 0.5, 1.0)]
+    diffs = [np.zeros(SHAPE)] * 3
+    index = _index()
+    sums = _run(index, fields, diffs, [2], [1.0])
+    halves, _ = project_groups(sums, index.families["halves"])
+    union, _ = project_groups(sums, np.asarray(index.families["halves"].sum(axis=1)) > 0)
+    whole, _ = project_groups(sums, index.families["mask"])
+    np.testing.assert_allclose(union, whole)
+    left = np.hypot(p[:, : SHAPE[1] // 2, 0], p[:, : SHAPE[1] // 2, 1]).mean()
+    assert halves[1, 0] == pytest.approx(0.5 * left)
+    # a single pattern frame has no pattern without itself: undefined, not a number
+    assert np.isnan(halves[2]).all()
+
+
+def test_cell_index_checks_its_maps():
+    with pytest.raises(InputError, match="share one shape"):
+        CellIndex.from_maps({"a": (np.zeros((4, 4), int), 1), "b": (np.zeros((5, 4), int), 1)})
+    with pytest.raises(InputError, match="at least one family"):
+        CellIndex.from_maps({})
+    index = CellIndex.from_maps({"a": (np.array([[0, -1], [1, 1]]), 2)})
+    assert index.pixels.tolist() == [0, 2, 3]
+    np.testing.assert_array_equal(index.gather(np.array([[1.0, 9.0], [np.nan, 3.0]])), [1, 0, 3])
+
+
+def test_a_uniform_translation_left_over_adds_nothing():
+    rng = np.random.default_rng(4)
+    p = _pattern(rng)
+    k = np.array([0.0, 0.3, 1.0, 0.6, 0.0])
+    shift = np.array([0.4, -0.25])  # left-over drift in some frames, px
+    fields = [kk * p + (shift if i in (1, 4) else 0) for i, kk in enumerate(k)]
+    index = _index()
+    sums = _run(index, fields, [np.zeros(SHAPE)] * 5, [2, 3], [1.0, 1.0])
+    disp, _ = project_groups(sums, index.families["mask"])
+    # the patterns are made blind to a uniform shift over the group (its mean removed)
+    expected = k * np.hypot(p[..., 0], p[..., 1]).mean()
+    np.testing.assert_allclose(disp[[0, 1, 4], 0], expected[[0, 1, 4]], atol=1e-9)
