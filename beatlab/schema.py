@@ -147,11 +147,13 @@ BEAT_FIELDS = (
        "amplitude between the previous beat's peak (or the first frame) and this peak."),
     _f("peak_s", "s", "float",
        "Time of the peak: vertex of the parabola through the three samples around the maximum "
-       "of the smoothed trace (see Peak)."),
+       "of the smoothed trace, or, where the frames show an abrupt turn at the top beyond "
+       "their noise, the maximum of a local cubic-with-kink fit of the frames (see Peak)."),
     _f("end_s", "s", "float",
        "Downstroke crossing of the 10 % level: last downward crossing between the peak and the "
-       "downstroke bound (see Levels and crossings); empty when the trace never falls to that "
-       "level."),
+       "downstroke bound (see Levels and crossings): for the last beat, its lowest point after "
+       "the peak once the trace is back at or below the 10 % level, else the last frame; empty "
+       "when the trace never falls to that level."),
     _f("ibi_s", "s", "float",
        "Inter-beat interval: peak_s minus the previous beat's peak_s; empty for the first beat."),
     _f("time_to_peak_s", "s", "float", "peak_s - onset_s."),
@@ -169,10 +171,13 @@ BEAT_FIELDS = (
        "Maximum of the smoothed opd_change_nm trace within the beat window minus that trace's "
        "own baseline (see OPD change of a beat)."),
     _f("contraction_velocity_um_s", "um/s", "float",
-       "Largest positive velocity_um_s within the beat window; empty if none is positive."),
+       "Largest positive velocity_um_s within the beat window; empty if none is positive, or "
+       "when the upstroke from onset_s to its 90 % crossing lasts less than 2.5 frame "
+       "intervals (not resolved: velocity_resolved False)."),
     _f("relaxation_velocity_um_s", "um/s", "float",
        "Largest negative velocity_um_s within the beat window, reported as a positive number; "
-       "empty if none is negative."),
+       "empty if none is negative, or when the downstroke from its 90 % crossing to end_s "
+       "lasts less than 2.5 frame intervals (not resolved: velocity_resolved False)."),
     _f("secondary_peak", "bool", "bool",
        "True when the beat has an EAD-like secondary peak (see Secondary peak)."),
     _f("irregular", "bool", "boolean",
@@ -180,8 +185,9 @@ BEAT_FIELDS = (
        "beats.irregular_tolerance [0.25] x that median; empty for the first beat."),
     _f("baseline_um", "um", "float", "Baseline of the beat on the displacement trace (see "
        "Baseline)."),
-    _f("peak_um", "um", "float", "Value of the displacement trace at the peak (the parabola's "
-       "vertex value)."),
+    _f("peak_um", "um", "float", "Value of the displacement trace at the peak: the parabola's "
+       "vertex value, or the maximum of the kink fit (see Peak); it lies on the interpolated "
+       "curve, above straight lines drawn between frames at low frame rates."),
     _f("upstroke_50_s", "s", "float",
        "Upstroke crossing of the 50 % level (last upward crossing before the peak)."),
     _f("downstroke_50_s", "s", "float",
@@ -191,6 +197,11 @@ BEAT_FIELDS = (
     _f("peak_index", "1", "int",
        "0-based frame index (row of trace.csv) of the maximum of the smoothed trace within "
        "50 ms of the detected peak."),
+    _f("velocity_resolved", "bool", "bool",
+       "False when the frame rate does not resolve the beat's upstroke (10 % to 90 %) or "
+       "downstroke (90 % to 10 %): shorter than 2.5 frame intervals (or than the velocity "
+       "filter's span when the analysis passes it); the unresolved velocity is then empty. A "
+       "stroke with an undefined crossing is not judged."),
 )  # fmt: skip
 """beats.csv: the 16 contract columns, then the extra ones."""
 
@@ -301,7 +312,7 @@ TRACE_SUMMARY_FIELDS = (
        "Robust white-noise SD of the displacement trace: 1.4826 x median absolute deviation of "
        "its frame-to-frame differences / sqrt 2."),
     _f("pattern_snr", "1", "float",
-       "Median of the displacement trace over the frames that built the contraction pattern / "
+       "Mean of the displacement trace over the frames that built the contraction pattern / "
        "trace_noise_um; beats are looked for only when it is at least 3 (below, the pattern is "
        "noise: no contraction found)."),
 )  # fmt: skip

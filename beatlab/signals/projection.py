@@ -19,10 +19,12 @@ A frame that helped build the pattern would be projected onto its own noise (a p
 bias); it is projected onto the pattern without itself (leave-one-out), which needs only the
 group sums of ``|F_t|^2`` besides ``F_t . A``.
 
-Within each region the patterns are made blind to a uniform translation and a uniform OPD
-offset (their mean over the region removed, ``A_perp``, ``B_perp``): drift or vibration left
-over after the rigid-shift removal then adds nothing. For a field ``k_t A`` the coordinate is
-still exactly ``k_t``, since ``sum A . A_perp = sum |A_perp|^2`` over the region.
+Optionally, within groups of pixels the patterns are made blind to a uniform translation and
+a uniform OPD offset (their mean over the group removed, ``A_perp``, ``B_perp``): drift or
+vibration left over after the rigid-shift removal then adds nothing. For a field ``k_t A``
+the coordinate is still exactly ``k_t``, since ``sum A . A_perp = sum |A_perp|^2`` over the
+group. (Not used by the pipeline: a contraction centred outside the field looks, from one
+side, largely like a translation.) Without groups, ``A_perp = A``.
 
 Groups are reduced through *cells*, the pixels sharing one group in every family (tile x
 label x mask), so a frame costs one pass over the used pixels whatever the number of groups.
@@ -105,9 +107,14 @@ class CellIndex:
         return np.bincount(self.cell, weights=values, minlength=self.n_cells)
 
 
-def remove_group_means(values: np.ndarray, groups: np.ndarray) -> np.ndarray:
-    """``values`` (M,) or (M, k) minus their mean over each group of pixels (``groups`` (M,))."""
+def remove_group_means(values: np.ndarray, groups: np.ndarray | None) -> np.ndarray:
+    """``values`` (M,) or (M, k) minus their mean over each group of pixels (``groups`` (M,)).
+
+    ``groups=None`` returns the values unchanged.
+    """
     values = np.asarray(values, dtype=np.float64)
+    if groups is None:
+        return values
     count = np.bincount(groups)
     count = np.maximum(count, 1)
     if values.ndim == 1:
@@ -130,17 +137,17 @@ class PatternAccumulator:
     groups : ndarray of int (M,), optional
         Groups of used pixels (e.g. the regions) within which the projection patterns are
         made blind to a uniform translation of the field and a uniform OPD offset (their mean
-        over the group removed); None: one group. Left-over drift or vibration then does not
-        count as contraction. Unions of these groups keep that property.
+        over the group removed): left-over drift or vibration then does not count as
+        contraction, and unions of these groups keep that property. None (default): the
+        patterns are used as they are. Not for contractions whose centre lies outside the
+        field: seen from one side, much of their pattern *is* a translation.
     """
 
     def __init__(self, index: CellIndex, groups: np.ndarray | None = None):
         m = index.pixels.size
         self.index = index
-        self.groups = (
-            np.zeros(m, dtype=np.intp) if groups is None else np.asarray(groups, dtype=np.intp)
-        )
-        if self.groups.shape != (m,):
+        self.groups = None if groups is None else np.asarray(groups, dtype=np.intp)
+        if self.groups is not None and self.groups.shape != (m,):
             raise InputError(f"groups must have one value per used pixel ({m},)")
         self._field = np.zeros((m, 2))
         self._opd = np.zeros(m)
@@ -185,7 +192,7 @@ class Patterns:
     field_perp: np.ndarray
     opd_perp: np.ndarray
     total: float
-    groups: np.ndarray
+    groups: np.ndarray | None
 
     def own_terms(self, field: np.ndarray, opd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per pixel ``F . F_perp`` and ``D D_perp`` of one frame (for leave-one-out)."""

@@ -134,6 +134,15 @@ class FrameSignals:
         return disp[:, 0] * self.pixel_size_um, opd[:, 0]
 
 
+def _column_medians(values: np.ndarray) -> np.ndarray:
+    """Median of the finite values of each column (NaN for a column without any)."""
+    out = np.full(values.shape[1], np.nan)
+    finite = np.isfinite(values)
+    for j in np.flatnonzero(finite.any(axis=0)):
+        out[j] = np.median(values[finite[:, j], j])
+    return out
+
+
 def zero_at_rest(traces: np.ndarray, rest: np.ndarray, segment: np.ndarray) -> np.ndarray:
     """Traces (T, G) minus their median over the resting frames of each template segment.
 
@@ -146,9 +155,7 @@ def zero_at_rest(traces: np.ndarray, rest: np.ndarray, segment: np.ndarray) -> n
         frames = segment == seg
         ref = frames & rest
         if ref.sum() >= 3:
-            with np.errstate(all="ignore"):
-                level = np.nanmedian(out[ref], axis=0) if np.isfinite(out[ref]).any() else 0.0
-            out[frames] -= np.nan_to_num(level)
+            out[frames] -= np.nan_to_num(_column_medians(out[ref]))
     return out
 
 
@@ -343,9 +350,7 @@ def measure_frames(
     tiles = tile_labels(reference.mask.shape, tile_px=tile_px)
     n_tiles = int(tiles.max()) + 1
     cells = _cell_index(reference, tiles, n_tiles)
-    # patterns blind to translation and OPD offset within each region (labels, rest of mask)
-    on_used = np.where(reference.labels > 0, reference.labels, 0).ravel()[cells.pixels]
-    accumulator = PatternAccumulator(cells, groups=on_used)
+    accumulator = PatternAccumulator(cells)
     frame_ref = np.maximum(rest.segment_of(times_s), 0)
     shifts = np.zeros((n, 2))
     clipped = np.zeros(n)

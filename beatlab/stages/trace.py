@@ -36,7 +36,7 @@ class TraceResult:
     summary : dict
         :func:`beatlab.rhythm.summarize_rhythm` keys, then ``snr`` (median displacement
         amplitude / trace noise SD; None without beats) and ``trace_noise_um`` (robust noise
-        SD of the displacement trace, um) and ``pattern_snr`` (median of the trace over the
+        SD of the displacement trace, um) and ``pattern_snr`` (mean of the trace over the
         pattern frames / trace noise SD; None when no pattern frames were given).
     average_beat : pandas.DataFrame
         Ensemble average aligned at onset (:func:`beatlab.beats.average_beat`).
@@ -102,8 +102,10 @@ def analyze_trace(
     noise = float(estimate_noise(work))
     pattern_snr = None
     if pattern_frames is not None and len(pattern_frames):
-        level = float(np.nanmedian(work[np.asarray(pattern_frames, dtype=int)]))
-        pattern_snr = level / noise if noise > 0 else None
+        at_pattern = work[np.asarray(pattern_frames, dtype=int)]
+        at_pattern = at_pattern[np.isfinite(at_pattern)]
+        if at_pattern.size and noise > 0:
+            pattern_snr = float(np.mean(at_pattern)) / noise
     if pattern_snr is not None and pattern_snr < MIN_PATTERN_SNR:
         peaks = np.zeros(0, dtype=int)
     else:

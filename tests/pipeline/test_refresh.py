@@ -33,9 +33,10 @@ def test_refreshed_template_keeps_the_rest_level_flat():
         stretches = [rest & (sim.times_s >= a) & (sim.times_s < a + 3) for a in (0, 3, 6, 9)]
         return max(float(np.median(d[sel])) for sel in stretches)
 
-    # one template: the changing rest state reads as displacement at rest (measured: 0.09 um
-    # at rest for a 0.14 um beat); refreshed every 3 s it stays near the noise floor (0.02)
-    assert worst_rest_level(fixed) > 0.4 * amp
-    assert worst_rest_level(refreshed) < 0.4 * worst_rest_level(fixed)
+    # one template: the changing rest state reads as displacement at rest (measured with the
+    # signed projection: 0.05 um at rest for a 0.14 um beat, 0.09 um with the earlier mean
+    # magnitude); refreshed every 3 s it stays at the zero-mean rest level
+    assert worst_rest_level(fixed) > 0.2 * amp
+    assert worst_rest_level(refreshed) < 0.3 * worst_rest_level(fixed)
     assert refreshed.summary["beat_count"] == sim.truth["summary"]["beat_count"]
     assert len(refreshed.summary["quality"]["template_segments"]) == 4

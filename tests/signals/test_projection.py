@@ -25,8 +25,8 @@ def _index():
     return CellIndex.from_maps({"mask": (np.zeros(SHAPE, int), 1), "halves": (halves, 2)})
 
 
-def _run(index, fields, diffs, pattern_frames, weights):
-    acc = PatternAccumulator(index)
+def _run(index, fields, diffs, pattern_frames, weights, groups=None):
+    acc = PatternAccumulator(index, groups=groups)
     for k, w in zip(pattern_frames, weights, strict=True):
         acc.add(k, fields[k], diffs[k], w)
     pat = acc.patterns()
@@ -98,14 +98,14 @@ def test_leave_one_out_removes_the_self_projection_bias():
 
 
 def test_groups_add_up_and_unions_are_projections_of_the_union():
-    # (the patterns are made translation-blind over the whole mask, not per half: the
+    # (also with patterns made translation-blind over the whole mask, not per half: the
     # halves are read exactly all the same)
     rng = np.random.default_rng(3)
     p = _pattern(rng)
     fields = [kk * p for kk in (0.0, 0.5, 1.0)]
     diffs = [np.zeros(SHAPE)] * 3
     index = _index()
-    sums = _run(index, fields, diffs, [2], [1.0])
+    sums = _run(index, fields, diffs, [2], [1.0], groups=np.zeros(index.pixels.size, int))
     halves, _ = project_groups(sums, index.families["halves"])
     union, _ = project_groups(sums, np.asarray(index.families["halves"].sum(axis=1)) > 0)
     whole, _ = project_groups(sums, index.families["mask"])
@@ -133,8 +133,14 @@ def test_a_uniform_translation_left_over_adds_nothing():
     shift = np.array([0.4, -0.25])  # left-over drift in some frames, px
     fields = [kk * p + (shift if i in (1, 4) else 0) for i, kk in enumerate(k)]
     index = _index()
-    sums = _run(index, fields, [np.zeros(SHAPE)] * 5, [2, 3], [1.0, 1.0])
+    one_group = np.zeros(index.pixels.size, dtype=int)
+    sums = _run(index, fields, [np.zeros(SHAPE)] * 5, [2, 3], [1.0, 1.0], groups=one_group)
     disp, _ = project_groups(sums, index.families["mask"])
-    # the patterns are made blind to a uniform shift over the group (its mean removed)
+    plain, _ = project_groups(
+        _run(index, fields, [np.zeros(SHAPE)] * 5, [2, 3], [1.0, 1.0]), index.families["mask"]
+    )
+    # blind to the shift where the patterns were made translation-blind (their mean removed),
+    # not without (the shift projects onto the pattern's own mean vector)
+    assert not np.allclose(plain[[1, 4], 0], [0.3 * np.hypot(p[..., 0], p[..., 1]).mean(), 0])
     expected = k * np.hypot(p[..., 0], p[..., 1]).mean()
     np.testing.assert_allclose(disp[[0, 1, 4], 0], expected[[0, 1, 4]], atol=1e-9)
