@@ -357,6 +357,9 @@ QUALITY_FIELDS = (
        "trace_noise_um of the whole-mask displacement trace (as in regions.csv)."),
     _f("pattern_snr", "1", "float",
        "pattern_snr of the whole-mask displacement trace (as in regions.csv)."),
+    _f("velocity_unresolved_beats", "count", "int",
+       "Beats whose contraction and relaxation velocities are null because the frame rate "
+       "does not resolve their strokes (velocity_resolved false in beats.csv)."),
     _f("drift_max_um", "um", "float",
        "Largest length of the drift vector (drift_x_um, drift_y_um) over the frames."),
     _f("drift_net_um", "um", "list",

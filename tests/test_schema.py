@@ -184,10 +184,12 @@ def test_region_tables_are_built_from_the_whole_mask_ones():
 def test_summary_keys_and_flat_row():
     names = [f.name for f in schema.SUMMARY_FIELDS]
     trace_keys = [f.name for f in schema.TRACE_SUMMARY_FIELDS]
-    # snr and trace_noise_um live in summary["quality"], not at the top level
-    assert names[: len(trace_keys) - 2] == trace_keys[:-2]
-    assert {"snr", "trace_noise_um"} <= {f.name for f in schema.QUALITY_FIELDS}
-    assert names[len(trace_keys) - 2 :] == [
+    # snr, trace_noise_um and pattern_snr live in summary["quality"], not at the top level
+    moved = ("snr", "trace_noise_um", "pattern_snr")
+    assert tuple(trace_keys[-3:]) == moved
+    assert names[: len(trace_keys) - 3] == trace_keys[:-3]
+    assert set(moved) <= {f.name for f in schema.QUALITY_FIELDS}
+    assert names[len(trace_keys) - 3 :] == [
         "beating_area_fraction",
         "n_regions",
         "quality",
@@ -209,7 +211,7 @@ def test_summary_keys_and_flat_row():
         "frames",
         "duration_s",
         "pixel_size_um",
-        *trace_keys[:-2],
+        *trace_keys[:-3],
         "beating_area_fraction",
         "n_regions",
         *quality_scalars,

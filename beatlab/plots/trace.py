@@ -55,7 +55,13 @@ def plot_trace(trace, beats, *, ax=None, column: str = "displacement_um"):
             ("end_s", "v", PALETTE["purple"], "end (10 %)"),
         )
         for col, marker, color, name in marks:
-            x, yy = at(beats[col])
+            if col == "peak_s" and "peak_um" in beats and column == "displacement_um":
+                # at the measured peak (the top of the interpolated curve), not on the
+                # straight line between frames, which passes below it at low frame rates
+                ok = np.isfinite(beats["peak_s"].to_numpy(float))
+                x, yy = beats["peak_s"].to_numpy(float)[ok], beats["peak_um"].to_numpy(float)[ok]
+            else:
+                x, yy = at(beats[col])
             ax.plot(x, yy, marker, ms=4, color=color, ls="none", label=name)
         if "secondary_peak" in beats and beats["secondary_peak"].astype(bool).any():
             flagged = beats["secondary_peak"].astype(bool)

@@ -5,7 +5,25 @@ from __future__ import annotations
 import numpy as np
 from scipy.signal import savgol_filter
 
-__all__ = ["opd_change_trace", "velocity_trace"]
+__all__ = ["opd_change_trace", "velocity_trace", "velocity_window_frames"]
+
+
+def velocity_window_frames(times_s: np.ndarray, *, window_ms: float, polyorder: int) -> int:
+    """Frames in the Savitzky-Golay window of :func:`velocity_trace` (0: central differences).
+
+    ``window_ms`` at the median frame interval, rounded to an odd count of at least
+    ``polyorder + 1`` frames and at most the recording's length.
+    """
+    t = np.asarray(times_s, dtype=np.float64)
+    if t.size < 3 or window_ms <= 0:
+        return 0
+    step = float(np.median(np.diff(t)))
+    n = max(round(window_ms / 1e3 / step), polyorder + 1)
+    if n % 2 == 0:
+        n += 1
+    if n > t.size:
+        n = t.size if t.size % 2 else t.size - 1
+    return int(n)
 
 
 def velocity_trace(
@@ -47,14 +65,7 @@ def velocity_trace(
     dt = np.diff(t)
     step = float(np.median(dt))
     even = np.allclose(dt, step, rtol=1e-3)
-    if window_ms <= 0:
-        return np.gradient(d, t)
-    n = round(window_ms / 1e3 / step)
-    n = max(n, polyorder + 1)
-    if n % 2 == 0:
-        n += 1
-    if n > d.size:
-        n = d.size if d.size % 2 else d.size - 1
+    n = velocity_window_frames(t, window_ms=window_ms, polyorder=polyorder)
     if n <= polyorder:
         return np.gradient(d, t)
     if even:

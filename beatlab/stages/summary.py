@@ -25,6 +25,9 @@ def _quality(trace: TraceResult, frames: FrameSignals, reference: Reference, rec
         "snr": trace.summary["snr"],
         "trace_noise_um": trace.summary["trace_noise_um"],
         "pattern_snr": trace.summary["pattern_snr"],
+        "velocity_unresolved_beats": int((~trace.beats["velocity_resolved"].astype(bool)).sum())
+        if "velocity_resolved" in trace.beats
+        else 0,
         "drift_max_um": float(np.max(np.hypot(*drift_um[finite].T))) if finite.any() else None,
         "drift_net_um": [float(drift_um[-1, 0]), float(drift_um[-1, 1])],
         "masked_fraction": reference.cells.masked_fraction,

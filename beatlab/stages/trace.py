@@ -14,7 +14,7 @@ import pandas as pd
 from beatlab.beats import average_beat, detect_beats, estimate_noise, measure_beats
 from beatlab.rhythm import summarize_rhythm
 from beatlab.settings import BeatSettings, RhythmSettings, VelocitySettings
-from beatlab.signals.traces import velocity_trace
+from beatlab.signals.traces import velocity_trace, velocity_window_frames
 
 __all__ = ["MIN_PATTERN_SNR", "TraceResult", "analyze_trace"]
 
@@ -110,9 +110,14 @@ def analyze_trace(
         peaks = np.zeros(0, dtype=int)
     else:
         peaks = detect_beats(work, times_s, **beats.detect_options())
-    table = measure_beats(
-        work, times_s, peaks, velocity=vel, opd_change=opd_change_nm, **beats.measure_options()
+    frames = velocity_window_frames(
+        times_s, window_ms=velocity.window_ms, polyorder=velocity.polyorder
     )
+    step = float(np.median(np.diff(times_s))) if times_s.size > 1 else 0.0
+    table = measure_beats(
+        work, times_s, peaks, velocity=vel, opd_change=opd_change_nm,
+        velocity_window_s=max(frames - 1, 0) * step, **beats.measure_options(),
+    )  # fmt: skip
     summary = summarize_rhythm(table, start_s=start_s, end_s=end_s, **rhythm.options())
     amplitude = summary.get("displacement_um")
     summary["snr"] = float(amplitude) / noise if amplitude is not None and noise > 0 else None
