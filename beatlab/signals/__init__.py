@@ -5,7 +5,7 @@ from beatlab.signals.level import PlaneLeveller
 from beatlab.signals.maps import tile_labels, tile_means
 from beatlab.signals.mask import CellMask, make_cell_mask
 from beatlab.signals.rest import RestTemplate, estimate_rest_template
-from beatlab.signals.traces import opd_change_trace, velocity_trace
+from beatlab.signals.traces import velocity_trace
 from beatlab.signals.tracker import FlowTracker
 
 __all__ = [
@@ -17,7 +17,6 @@ __all__ = [
     "compute_flow",
     "estimate_rest_template",
     "make_cell_mask",
-    "opd_change_trace",
     "tile_labels",
     "tile_means",
     "velocity_trace",

@@ -1,11 +1,11 @@
-"""Per-frame traces derived from the flow and OPD passes: velocity and OPD change."""
+"""Per-frame traces derived from the displacement trace: velocity."""
 
 from __future__ import annotations
 
 import numpy as np
 from scipy.signal import savgol_filter
 
-__all__ = ["opd_change_trace", "velocity_trace", "velocity_window_frames"]
+__all__ = ["velocity_trace", "velocity_window_frames"]
 
 
 def velocity_window_frames(times_s: np.ndarray, *, window_ms: float, polyorder: int) -> int:
@@ -73,22 +73,3 @@ def velocity_trace(
     grid = np.arange(t[0], t[-1] + step / 2, step)
     v = savgol_filter(np.interp(grid, t, d), n, polyorder, deriv=1, delta=step, mode="interp")
     return np.interp(t, grid, v)
-
-
-def opd_change_trace(mean_square_nm2: np.ndarray, noise_var_nm2: np.ndarray | float) -> np.ndarray:
-    """RMS OPD change with the frame noise removed in quadrature, floored at 0 (nm).
-
-    Parameters
-    ----------
-    mean_square_nm2 : ndarray (T,)
-        Mean over the mask of (OPD_t - template)^2 for each frame, nm^2.
-    noise_var_nm2 : float or ndarray (T,)
-        Expected mean square of that difference at rest (frame noise plus template noise).
-
-    Returns
-    -------
-    ndarray (T,)
-        ``sqrt(max(ms - noise, 0))``: about 0 at rest, growing with the contraction.
-    """
-    ms = np.asarray(mean_square_nm2, dtype=np.float64)
-    return np.sqrt(np.clip(ms - noise_var_nm2, 0.0, None))

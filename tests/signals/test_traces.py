@@ -1,7 +1,7 @@
 import numpy as np
 import pytest
 
-from beatlab.signals.traces import opd_change_trace, velocity_trace
+from beatlab.signals.traces import velocity_trace, velocity_window_frames
 
 
 @pytest.mark.parametrize("fps", [15.0, 30.0, 100.0])
@@ -28,7 +28,16 @@ def test_velocity_short_inputs():
     np.testing.assert_allclose(v, 1.0)
 
 
-def test_opd_change_quadrature_and_floor():
-    ms = np.array([4.0, 4.0 + 9.0, 3.0])
-    out = opd_change_trace(ms, 4.0)
-    np.testing.assert_allclose(out, [0.0, 3.0, 0.0])
+@pytest.mark.parametrize(
+    ("fps", "window_ms", "expected"),
+    [(50, 60.0, 3), (100, 60.0, 7), (10, 60.0, 3), (30, 0.0, 0), (1000, 60.0, 61)],
+)
+def test_velocity_window_frames(fps, window_ms, expected):
+    # 60 ms at 50 fps = 3 frames; at 100 fps 6 -> odd 7; at 10 fps 0.6 -> at least
+    # polyorder + 1 = 3; 0 ms: central differences (0); 1000 fps: 60 -> 61 (worked by hand)
+    times = np.arange(200) / fps
+    assert velocity_window_frames(times, window_ms=window_ms, polyorder=2) == expected
+
+
+def test_velocity_window_never_exceeds_the_recording():
+    assert velocity_window_frames(np.arange(6) / 10.0, window_ms=5000.0, polyorder=2) == 5
