@@ -63,12 +63,25 @@ def test_the_trace_has_no_floor_at_rest(runs):
         assert (rest < 0).mean() > 0.2, f"{name}: a signed trace dips below zero at rest"
 
 
+def _truth_over(sim, mask):
+    """The true amplitude as the mean displacement over ``mask`` (the analysed pixels).
+
+    The simulator's truth averages over the cells' footprint; the analysis mask, found in the
+    template by a noise-scaled threshold, is a little larger at low noise. The field is the
+    same, so the truth is rescaled by the ratio of the unit field's mean magnitude.
+    """
+    unit = np.hypot(*np.asarray(sim.displacement_field_um))
+    true = np.median([b["displacement_um"] for b in sim.truth["beats"]])
+    return true * unit[mask].mean() / unit[np.asarray(sim.mask)].mean()
+
+
 def test_amplitude_is_proportional_to_strain(runs):
-    amp = {name: np.median(res.beats["displacement_um"]) for name, (_, res) in runs.items()}
-    truth = {
-        name: np.median([b["displacement_um"] for b in sim.truth["beats"]])
-        for name, (sim, _) in runs.items()
+    ratio = {
+        name: np.median(res.beats["displacement_um"]) / _truth_over(sim, res.mask)
+        for name, (sim, res) in runs.items()
     }
-    ratio = {name: amp[name] / truth[name] for name in amp}
-    # one gain for every amplitude (linear in the field): within 3 % of each other
+    # one gain for every amplitude and noise (linear in the field): within 3 % of each other,
+    # and within 5 % of the true mean displacement over the same pixels (issue 8 target;
+    # measured 0.959-0.981)
     assert max(ratio.values()) / min(ratio.values()) < 1.03, ratio
+    assert all(0.95 < r < 1.05 for r in ratio.values()), ratio
