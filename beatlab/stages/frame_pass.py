@@ -296,6 +296,22 @@ class _FrameReducer:
         return meas.flow_px, aligned - template, shift, meas.clipped_fraction
 
 
+def _group_traces(sums, cells, rest, segment, finite):
+    """Mask displacement and OPD, tile and label displacement (px, nm): 0 at rest, NaN where
+    a frame has no finite pixel."""
+    traces = [
+        zero_at_rest(t, rest.rest, segment)
+        for t in (
+            *project_groups(sums, cells.families["mask"]),
+            project_groups(sums, cells.families["tiles"])[0],
+            project_groups(sums, cells.families["labels"])[0],
+        )
+    ]
+    for trace in traces:
+        trace[~finite] = np.nan
+    return traces
+
+
 def measure_frames(
     source,
     reference: Reference,
@@ -439,17 +455,7 @@ def measure_frames(
         {k: v for k, v in weight_of.items() if k in field_sq},
     )
     segment = np.maximum(rest.segment_of(times_s), 0)
-    traces = [
-        zero_at_rest(t, rest.rest, segment)
-        for t in (
-            *project_groups(sums, cells.families["mask"]),
-            project_groups(sums, cells.families["tiles"])[0],
-            project_groups(sums, cells.families["labels"])[0],
-        )
-    ]
-    for trace in traces:
-        trace[~finite] = np.nan
-    mask_disp, mask_opd, tile_disp, label_disp = traces
+    mask_disp, mask_opd, tile_disp, label_disp = _group_traces(sums, cells, rest, segment, finite)
     n_labels = int(reference.labels.max())
     return FrameSignals(
         displacement_um=mask_disp[:, 0] * px_um,
