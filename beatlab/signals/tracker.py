@@ -196,7 +196,11 @@ class FlowTracker:
         )
 
     def measure(
-        self, frame_nm: np.ndarray, *, rigid_shift_px: np.ndarray | None = None
+        self,
+        frame_nm: np.ndarray,
+        *,
+        rigid_shift_px: np.ndarray | None = None,
+        mean_magnitude: bool = True,
     ) -> FlowMeasurement:
         """Displacement, rigid shift, shift-free flow and clipped fraction of one frame.
 
@@ -207,6 +211,9 @@ class FlowTracker:
         rigid_shift_px : array-like, shape (2,), optional
             (dx, dy) px to remove instead of the frame's own estimate, e.g. a drift
             interpolated in time from resting frames, or zeros to remove nothing.
+        mean_magnitude : bool
+            Compute ``displacement_um``; False leaves it NaN, for callers that reduce the
+            field themselves (the per-frame pass projects it instead).
 
         Returns
         -------
@@ -248,7 +255,7 @@ class FlowTracker:
         mask = self.mask & finite
         value = (
             mean_displacement_um(flow, mask, pixel_size_um=self.pixel_size_um)
-            if mask.any()
+            if mean_magnitude and mask.any()
             else float("nan")
         )
         return FlowMeasurement(value, shift, flow, clipped, estimate)

@@ -288,7 +288,9 @@ class _FrameReducer:
         template, leveller, tracker = self.refs[ref]
         levelled = leveller.level(frame)
         meas = tracker.measure(
-            levelled, rigid_shift_px=drift if self.remove_rigid else np.zeros(2)
+            levelled,
+            rigid_shift_px=drift if self.remove_rigid else np.zeros(2),
+            mean_magnitude=False,
         )
         shift = meas.rigid_shift_px if self.remove_rigid else meas.estimated_shift_px
         used = meas.rigid_shift_px

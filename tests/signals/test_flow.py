@@ -306,3 +306,15 @@ def test_measure_reports_frame_clipping():
     assert 0.0 < tracker.template_clipped_fraction < 0.02  # 0.5/99.5 percentiles
     result = tracker.measure(opd + 100.0)  # far brighter than the template's range
     assert result.clipped_fraction > 0.5
+
+
+def test_measure_can_skip_the_mean_magnitude():
+    opd, mask = make_opd(np.random.default_rng(5))
+    tracker = FlowTracker(opd, mask, pixel_size_um=PIXEL_UM)
+    moved = ndi.shift(opd, (0.0, 0.5), order=3, mode="nearest")
+    full = tracker.measure(moved, rigid_shift_px=np.zeros(2))
+    lean = tracker.measure(moved, rigid_shift_px=np.zeros(2), mean_magnitude=False)
+    # same field, no mean: a 0.5 px shift reads about 0.25 um of displacement when computed
+    assert np.isnan(lean.displacement_um)
+    np.testing.assert_array_equal(lean.flow_px, full.flow_px)
+    assert full.displacement_um == pytest.approx(0.5 * PIXEL_UM, rel=0.1)
