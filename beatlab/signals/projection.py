@@ -28,6 +28,12 @@ side, largely like a translation.) Without groups, ``A_perp = A``.
 
 Groups are reduced through *cells*, the pixels sharing one group in every family (tile x
 label x mask), so a frame costs one pass over the used pixels whatever the number of groups.
+
+Pattern frames and their weights may differ between the groups of one family (each region's
+pattern from its own most contracted frames, ``weight_family``): the pattern at a pixel is the
+weighted mean over the frames of its group, and the leave-one-out correction is made per cell
+before the cells are summed into groups, so any union of groups stays a projection onto the
+union of their patterns.
 """
 
 from __future__ import annotations
@@ -47,6 +53,7 @@ __all__ = [
     "ProjectionSums",
     "project_groups",
     "remove_group_means",
+    "weight_groups_of_cells",
 ]
 
 
@@ -141,33 +148,58 @@ class PatternAccumulator:
         contraction, and unions of these groups keep that property. None (default): the
         patterns are used as they are. Not for contractions whose centre lies outside the
         field: seen from one side, much of their pattern *is* a translation.
+    weight_family : str, optional
+        A family of ``index`` whose groups each weight the frames on their own: ``add``
+        then takes one weight per group of that family plus one last weight for the cells
+        in none of its groups (:attr:`n_weight_groups` in all). None: one weight per frame.
     """
 
-    def __init__(self, index: CellIndex, groups: np.ndarray | None = None):
+    def __init__(
+        self,
+        index: CellIndex,
+        groups: np.ndarray | None = None,
+        *,
+        weight_family: str | None = None,
+    ):
         m = index.pixels.size
         self.index = index
         self.groups = None if groups is None else np.asarray(groups, dtype=np.intp)
         if self.groups is not None and self.groups.shape != (m,):
             raise InputError(f"groups must have one value per used pixel ({m},)")
+        self.cell_group = weight_groups_of_cells(index, weight_family)
+        self.n_weight_groups = (
+            1 if weight_family is None else index.families[weight_family].shape[1] + 1
+        )
+        self._pixel_group = self.cell_group[index.cell]
         self._field = np.zeros((m, 2))
         self._opd = np.zeros(m)
-        self.weights: dict[int, float] = {}
+        self.weights: dict[int, np.ndarray] = {}
         self._lock = threading.Lock()
 
-    def add(self, frame: int, field_px: np.ndarray, opd_diff_nm: np.ndarray, weight: float):
-        """Add one frame's field (Y, X, 2) and OPD difference (Y, X) with a weight > 0."""
+    def add(self, frame: int, field_px: np.ndarray, opd_diff_nm: np.ndarray, weight):
+        """Add one frame's field (Y, X, 2) and OPD difference (Y, X).
+
+        ``weight``: a float >= 0, or one per weight group (:attr:`n_weight_groups`).
+        """
+        w = np.broadcast_to(np.asarray(weight, dtype=np.float64), (self.n_weight_groups,))
+        per_pixel = w[self._pixel_group]
         f = self.index.gather(field_px).astype(np.float64)
         d = self.index.gather(opd_diff_nm).astype(np.float64)
         with self._lock:
-            self._field += weight * f
-            self._opd += weight * d
-            self.weights[int(frame)] = float(weight)
+            self._field += per_pixel[:, None] * f
+            self._opd += per_pixel * d
+            self.weights[int(frame)] = w.copy()
 
     def patterns(self) -> Patterns:
         """The weighted means ``A`` and ``B`` and their group-mean-free versions."""
-        total = float(sum(self.weights.values()))
-        a = self._field / total if total > 0 else np.zeros_like(self._field)
-        b = self._opd / total if total > 0 else np.zeros_like(self._opd)
+        total = np.zeros(self.n_weight_groups)
+        for w in self.weights.values():
+            total += w
+        per_pixel = total[self._pixel_group]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            scale = np.where(per_pixel > 0, 1.0 / per_pixel, 0.0)
+        a = self._field * scale[:, None]
+        b = self._opd * scale
         return Patterns(
             field=a,
             opd=b,
@@ -175,7 +207,34 @@ class PatternAccumulator:
             opd_perp=remove_group_means(b, self.groups),
             total=total,
             groups=self.groups,
+            cell_group=self.cell_group,
         )
+
+
+def weight_groups_of_cells(index: CellIndex, family: str | None) -> np.ndarray:
+    """Weight group of each cell: its group in ``family`` (the last group: in none of them).
+
+    Raises
+    ------
+    InputError
+        ``family`` is not a family of ``index``, or a cell lies in two of its groups.
+    """
+    if family is None:
+        return np.zeros(index.n_cells, dtype=np.intp)
+    if family not in index.families:
+        raise InputError(
+            f"weight_family {family!r} is not a family of the cell index; use one of "
+            f"{sorted(index.families)}"
+        )
+    member = sparse.csr_matrix(index.families[family])
+    if np.any(np.diff(member.indptr) > 1):
+        raise InputError(
+            f"family {family!r} puts a cell in two groups; its groups must not overlap"
+        )
+    group = np.full(index.n_cells, member.shape[1], dtype=np.intp)
+    rows = np.repeat(np.arange(index.n_cells), np.diff(member.indptr))
+    group[rows] = member.indices
+    return group
 
 
 @dataclass(frozen=True)
@@ -184,15 +243,17 @@ class Patterns:
 
     ``field`` (M, 2) px and ``opd`` (M,) nm are the weighted means (they set the scale);
     ``field_perp`` and ``opd_perp`` the same minus their mean over each group (frames are
-    projected onto these); ``total`` the sum of the weights.
+    projected onto these); ``total`` the sum of the weights of each weight group;
+    ``cell_group`` the weight group of each cell.
     """
 
     field: np.ndarray
     opd: np.ndarray
     field_perp: np.ndarray
     opd_perp: np.ndarray
-    total: float
+    total: np.ndarray
     groups: np.ndarray | None
+    cell_group: np.ndarray
 
     def own_terms(self, field: np.ndarray, opd: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per pixel ``F . F_perp`` and ``D D_perp`` of one frame (for leave-one-out)."""
@@ -201,15 +262,23 @@ class Patterns:
         return (field * f_perp).sum(axis=1), opd * d_perp
 
     def sums(self, index: CellIndex, field_dot, opd_dot, field_sq, opd_sq, weights):
-        """The :class:`ProjectionSums` of a pass (per-frame cell sums given)."""
+        """The :class:`ProjectionSums` of a pass (per-frame cell sums given).
+
+        ``weights``: the pattern frames' weights, each a float or one per weight group.
+        """
         a, b = self.field, self.opd
+        n_groups = self.total.size
+        per_cell = {
+            int(k): np.broadcast_to(np.asarray(w, dtype=np.float64), (n_groups,))[self.cell_group]
+            for k, w in weights.items()
+        }
         return ProjectionSums(
             field_dot=field_dot,
             opd_dot=opd_dot,
             field_sq=field_sq,
             opd_sq=opd_sq,
-            weights=weights,
-            total=self.total,
+            weights=per_cell,
+            total=self.total[self.cell_group],
             norm_a=index.cell_sums((self.field_perp**2).sum(axis=1)),
             norm_b=index.cell_sums(self.opd_perp**2),
             cross_a=index.cell_sums((a * self.field_perp).sum(axis=1)),
@@ -231,9 +300,9 @@ class ProjectionSums:
     field_sq, opd_sq : dict of int to ndarray (n_cells,)
         For the frames that built the patterns: cell sums of ``F_t . F_t,perp`` and
         ``D_t D_t,perp`` (:meth:`Patterns.own_terms`).
-    weights : dict of int to float
-        Weight of each pattern frame; ``total`` their sum.
-    total : float
+    weights : dict of int to ndarray (n_cells,)
+        Weight of each pattern frame in each cell; ``total`` their sum per cell.
+    total : ndarray (n_cells,)
     norm_a, norm_b : ndarray (n_cells,)
         Cell sums of ``|A_perp|^2`` and ``B_perp^2``.
     cross_a, cross_b : ndarray (n_cells,)
@@ -254,7 +323,7 @@ class ProjectionSums:
     field_sq: dict
     opd_sq: dict
     weights: dict
-    total: float
+    total: np.ndarray
     norm_a: np.ndarray
     norm_b: np.ndarray
     cross_a: np.ndarray
@@ -264,25 +333,31 @@ class ProjectionSums:
     count: np.ndarray
 
 
-def _coordinate(dot, norm, own_sq, weights, total):
-    """dot / norm per frame and group, leave-one-out for the frames in ``weights``.
+def _coordinate(dot, norm, own_sq, weights, total, group):
+    """Group sums of dot / group sums of norm per frame, leave-one-out for the pattern frames.
 
+    ``dot`` (T, n_cells), ``norm`` (n_cells,), per-cell ``own_sq``, ``weights`` and ``total``;
+    ``group`` sums cells into groups. Leave-one-out is per cell, with the cell's own weights
+    (``A' = (total A - w F) / (total - w)``, nothing where no weight is left), then summed.
     The leave-one-out coordinate is in units of the pattern without the frame, ``A'``; it is
     returned in units of ``A`` (times ``|A'| / |A|``, the RMS ratio over the group), so that
     one scale, the mean ``|A|``, serves every frame: exact when ``A'`` is a multiple of ``A``.
     """
+    g_norm = group(norm)
     with np.errstate(invalid="ignore", divide="ignore"):
-        coord = np.where(norm > 0, dot / norm, np.nan)
+        coord = np.where(g_norm > 0, group(dot) / g_norm, np.nan)
         for frame, w in weights.items():
             rest = total - w
-            if rest <= 0:
-                coord[frame] = np.nan
-                continue
+            left = rest > 0
+            safe = np.where(left, rest, 1.0)
             d, sq = dot[frame], own_sq[frame]
-            loo_dot = (total * d - w * sq) / rest
-            loo_norm = (total**2 * norm - 2 * total * w * d + w**2 * sq) / rest**2
-            ratio = np.sqrt(np.where(norm > 0, loo_norm / norm, np.nan))
-            coord[frame] = np.where(loo_norm > 0, loo_dot / loo_norm * ratio, np.nan)
+            loo_dot = np.where(left, (total * d - w * sq) / safe, 0.0)
+            loo_norm = np.where(
+                left, (total**2 * norm - 2 * total * w * d + w**2 * sq) / safe**2, 0.0
+            )
+            g_dot, g_loo = group(loo_dot), group(loo_norm)
+            ratio = np.sqrt(np.where(g_norm > 0, g_loo / g_norm, np.nan))
+            coord[frame] = np.where(g_loo > 0, g_dot / g_loo * ratio, np.nan)
     return coord
 
 
@@ -311,11 +386,11 @@ def project_groups(
         return np.asarray(s.T @ np.asarray(cells, dtype=np.float64).T).T
 
     n = group(sums.count)
-    own_f = {k: group(v) for k, v in sums.field_sq.items()}
-    own_d = {k: group(v) for k, v in sums.opd_sq.items()}
     norm_a, norm_b = group(sums.norm_a), group(sums.norm_b)
-    coord_f = _coordinate(group(sums.field_dot), norm_a, own_f, sums.weights, sums.total)
-    coord_d = _coordinate(group(sums.opd_dot), norm_b, own_d, sums.weights, sums.total)
+    coord_f = _coordinate(
+        sums.field_dot, sums.norm_a, sums.field_sq, sums.weights, sums.total, group
+    )
+    coord_d = _coordinate(sums.opd_dot, sums.norm_b, sums.opd_sq, sums.weights, sums.total, group)
     with np.errstate(invalid="ignore", divide="ignore"):
         coord_f = coord_f * np.where(group(sums.cross_a) > 0, norm_a / group(sums.cross_a), np.nan)
         coord_d = coord_d * np.where(group(sums.cross_b) > 0, norm_b / group(sums.cross_b), np.nan)

@@ -94,7 +94,9 @@ class FrameSignals:
         Cells of pixels and their groups (families ``mask``, ``labels``, ``tiles``).
     pixel_size_um : float
     pattern_frames : ndarray of int
-        Frames that built the patterns.
+        Frames that built the patterns (of any label).
+    label_pattern_frames : tuple of ndarray of int
+        Frames that built each label's pattern (entry k: label k + 1).
     drift_reference : str
         How the rigid shift was measured.
     template_clipped_fraction : float
@@ -119,6 +121,7 @@ class FrameSignals:
     cells: CellIndex
     pixel_size_um: float
     pattern_frames: np.ndarray
+    label_pattern_frames: tuple
     drift_reference: str
     template_clipped_fraction: float
 
@@ -132,6 +135,11 @@ class FrameSignals:
         disp, opd = project_groups(self.sums, np.asarray(union) > 0)
         disp, opd = (zero_at_rest(t, self.rest_frames, self.segment) for t in (disp, opd))
         return disp[:, 0] * self.pixel_size_um, opd[:, 0]
+
+    def union_pattern_frames(self, members) -> np.ndarray:
+        """Frames that built the patterns of some labels (1-based), sorted."""
+        picked = [self.label_pattern_frames[int(m) - 1] for m in members]
+        return np.unique(np.concatenate(picked)) if picked else np.zeros(0, dtype=int)
 
 
 def _column_medians(values: np.ndarray) -> np.ndarray:
@@ -234,15 +242,75 @@ def _share_template_noise(field_dot, opd_dot, in_template, template_k) -> None:
         dots[frames] += (sigma2[None, :] / k[:, None]).astype(dots.dtype)
 
 
-def _pattern_frames(rest: RestTemplate) -> tuple[np.ndarray, np.ndarray]:
-    """The most contracted frames and their weights (deviation above the rest level)."""
-    dev = np.asarray(rest.deviation, dtype=float)
-    level = float(rest.info.get("rest_deviation_nm", np.median(dev[rest.rest])))
+def _most_contracted(dev: np.ndarray, level: float) -> tuple[np.ndarray, np.ndarray]:
+    """The most contracted frames by ``dev`` and their weights (``dev`` above ``level``)."""
     count = int(np.clip(round(_PATTERN_QUANTILE * dev.size), 8, MAX_PATTERN_FRAMES))
     order = np.argsort(-np.nan_to_num(dev, nan=-np.inf), kind="stable")[:count]
     weights = dev[order] - level
     keep = np.isfinite(weights) & (weights > 0)
-    return np.sort(order[keep]), weights[keep][np.argsort(order[keep])]
+    return order[keep], weights[keep]
+
+
+def label_deviation(rest: RestTemplate, labels: np.ndarray) -> np.ndarray | None:
+    """RMS deviation from rest of each label's pixels per frame, nm (T, L); None: unknown.
+
+    From the rest pass's block activity (|aligned block mean - rest|), each block weighted by
+    its share of the label's pixels.
+    """
+    n_labels = int(labels.max())
+    if rest.activity is None or n_labels < 1:
+        return None
+    factor = int(rest.info["block_factor"])
+    n, by, bx = rest.activity.shape
+    crop = labels[: by * factor, : bx * factor]
+    block = (np.arange(by)[:, None] * bx + np.arange(bx)[None, :]).repeat(factor, 0)
+    block = block.repeat(factor, 1)[: crop.shape[0], : crop.shape[1]]
+    share = np.zeros((by * bx, n_labels + 1))
+    np.add.at(share, (block.ravel(), crop.ravel()), 1.0)
+    share = share[:, 1:]
+    area = share.sum(axis=0)
+    power = rest.activity.reshape(n, -1).astype(np.float64) ** 2 @ share
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.sqrt(np.where(area > 0, power / area, np.nan))
+
+
+def pattern_weights(
+    rest: RestTemplate, labels: np.ndarray, *, n_labels: int | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Frames that build the patterns and their weight for each label (and the rest).
+
+    Each label of ``labels`` (1..L) takes its own most contracted frames (by the deviation of
+    its pixels from rest, :func:`label_deviation`), weighted by how far each lies above the
+    label's resting level; pixels in no label (column L) use the whole field's deviation. A
+    small region beating on its own beside a large one then builds its pattern from its own
+    contractions, not from the large one's spill-over.
+
+    Returns
+    -------
+    frames : ndarray of int (P,)
+        Every frame that builds some label's pattern, sorted.
+    weights : ndarray (P, L + 1)
+        Weight of each frame for each label (0: not one of its frames) and, last, for the
+        pixels in no label. ``L`` is ``n_labels`` when given (labels without pixels take the
+        whole field's frames), else the largest label.
+    """
+    dev = np.asarray(rest.deviation, dtype=float)
+    level = float(rest.info.get("rest_deviation_nm", np.median(dev[rest.rest])))
+    columns = [(dev, level)]
+    per_label = label_deviation(rest, labels)
+    n_labels = int(labels.max()) if n_labels is None else int(n_labels)
+    for j in range(n_labels):
+        own = per_label[:, j] if per_label is not None and j < per_label.shape[1] else None
+        if own is None or not np.isfinite(own).any():
+            columns.insert(-1, (dev, level))
+        else:
+            columns.insert(-1, (own, float(np.nanmedian(own[rest.rest]))))
+    weights = np.zeros((dev.size, len(columns)))
+    for j, (series, lvl) in enumerate(columns):
+        frames, w = _most_contracted(series, lvl)
+        weights[frames, j] = w
+    frames = np.flatnonzero(weights.any(axis=1))
+    return frames, weights[frames]
 
 
 def _cell_index(reference: Reference, tiles: np.ndarray, n_tiles: int) -> CellIndex:
@@ -368,7 +436,7 @@ def measure_frames(
     tiles = tile_labels(reference.mask.shape, tile_px=tile_px)
     n_tiles = int(tiles.max()) + 1
     cells = _cell_index(reference, tiles, n_tiles)
-    accumulator = PatternAccumulator(cells)
+    accumulator = PatternAccumulator(cells, weight_family="labels")
     frame_ref = np.maximum(rest.segment_of(times_s), 0)
     shifts = np.zeros((n, 2))
     clipped = np.zeros(n)
@@ -388,8 +456,10 @@ def measure_frames(
     )
     if interpolate:
         drift_reference = "cell median at rest frames, interpolated"
-    pattern_idx, pattern_w = _pattern_frames(rest)
-    weight_of = dict(zip(pattern_idx.tolist(), pattern_w.tolist(), strict=True))
+    pattern_idx, pattern_w = pattern_weights(
+        rest, reference.labels, n_labels=cells.families["labels"].shape[1]
+    )
+    weight_of = dict(zip(pattern_idx.tolist(), pattern_w, strict=True))
     drift_px: np.ndarray | None = None
     state: dict = {}
 
@@ -474,6 +544,9 @@ def measure_frames(
         cells=cells,
         pixel_size_um=px_um,
         pattern_frames=pattern_idx,
+        label_pattern_frames=tuple(
+            pattern_idx[pattern_w[:, j] > 0] for j in range(pattern_w.shape[1] - 1)
+        ),
         rest_frames=np.asarray(rest.rest, dtype=bool),
         segment=segment,
         drift_reference=drift_reference if settings.flow.rigid != "none" else "none",

@@ -118,7 +118,7 @@ def analyze_regions(
             rhythm=settings.rhythm,
             start_s=start_s,
             end_s=end_s,
-            pattern_frames=frames.pattern_frames,
+            pattern_frames=frames.union_pattern_frames(members),
         )
         results.append(res)
         beats.append(res.beats.assign(region=number)[["region", *res.beats.columns]])

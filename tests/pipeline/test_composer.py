@@ -211,15 +211,6 @@ def cut_centre():
     return big, small, res
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason=(
-        "issue 8 follow-up: the contraction pattern is built from the whole field's most "
-        "contracted frames, so a small region beating on its own next to a large one gets a "
-        "pattern dominated by the large one's spill-over; its beat that overlaps the large "
-        "one's is read 70 ms late and 20 % low (per-region pattern frames needed)"
-    ),
-)
 def test_contraction_is_not_taken_for_drift(cut_centre):
     big, small, res = cut_centre
     assert res.summary["quality"]["drift_reference"] == INTERPOLATED

@@ -144,3 +144,57 @@ def test_a_uniform_translation_left_over_adds_nothing():
     assert not np.allclose(plain[[1, 4], 0], [0.3 * np.hypot(p[..., 0], p[..., 1]).mean(), 0])
     expected = k * np.hypot(p[..., 0], p[..., 1]).mean()
     np.testing.assert_allclose(disp[[0, 1, 4], 0], expected[[0, 1, 4]], atol=1e-9)
+
+
+def test_each_group_builds_its_pattern_from_its_own_frames():
+    # two halves beating on their own: the left contracts in frames 2-4, the right in 6-8;
+    # with one weight per half and frame, each half reads its own k_t exactly, including its
+    # pattern frames (leave-one-out per cell), while a shared set of frames leaves the right
+    # half without a pattern built from its contraction
+    rng = np.random.default_rng(5)
+    p = _pattern(rng)
+    left_of = np.broadcast_to(np.arange(SHAPE[1])[None, :] < SHAPE[1] // 2, SHAPE)
+    k_left = np.array([0, 0, 0.6, 1.0, 0.7, 0, 0, 0, 0, 0])
+    k_right = np.array([0, 0, 0, 0, 0, 0, 0.5, 1.0, 0.8, 0])
+    fields = [
+        np.where(left_of[..., None], kl * p, kr * p)
+        for kl, kr in zip(k_left, k_right, strict=True)
+    ]
+    index = _index()
+    acc = PatternAccumulator(index, weight_family="halves")
+    assert acc.n_weight_groups == 3  # two halves and "in neither"
+    frames = [2, 3, 4, 6, 7, 8]
+    weights = {f: np.array([k_left[f], k_right[f], 0.0]) for f in frames}
+    for f in frames:
+        acc.add(f, fields[f], np.zeros(SHAPE), weights[f])
+    pat = acc.patterns()
+    gather = [index.gather(f) for f in fields]
+    own = {
+        f: index.cell_sums(pat.own_terms(gather[f], np.zeros(index.pixels.size))[0])
+        for f in frames
+    }
+    zeros = np.zeros((len(fields), index.n_cells))
+    sums = pat.sums(
+        index,
+        np.array([index.cell_sums((g * pat.field_perp).sum(1)) for g in gather]),
+        zeros,
+        own,
+        {f: np.zeros(index.n_cells) for f in frames},
+        weights,
+    )
+    halves, _ = project_groups(sums, index.families["halves"])
+    mag = np.hypot(p[..., 0], p[..., 1])
+    np.testing.assert_allclose(halves[:, 0], k_left * mag[left_of].mean(), atol=1e-9)
+    np.testing.assert_allclose(halves[:, 1], k_right * mag[~left_of].mean(), atol=1e-9)
+    # the union is the projection onto both patterns: a weighted mix of the two halves
+    whole, _ = project_groups(sums, index.families["mask"])
+    assert np.all(whole[[3, 7], 0] > 0) and np.allclose(whole[[0, 1, 5, 9], 0], 0)
+
+
+def test_weight_family_must_exist_and_not_overlap():
+    index = _index()
+    with pytest.raises(InputError, match="weight_family 'rows'"):
+        PatternAccumulator(index, weight_family="rows")
+    both = CellIndex.from_maps({"a": (np.array([[0, 1], [1, 1]]), 2)})
+    assert both.n_cells == 2
+    np.testing.assert_array_equal(PatternAccumulator(both, weight_family="a").cell_group, [0, 1])
