@@ -52,6 +52,15 @@ PARAMETERS: dict[str, dict[str, Param]] = {
             64, "frames read and processed at a time (bounds memory)", "frames", lo=1
         ),
         "min_frames": P(8, "recordings shorter than this are rejected", "frames", lo=2),
+        "bin": P(
+            0,
+            "average bin x bin pixel blocks before the analysis (1: none; 0: automatic, the "
+            "largest factor that keeps the short side at 256 px or more and the pixel at "
+            "1 um or less)",
+            "px",
+            lo=0,
+            hi=16,
+        ),
     },
     "template": {
         "rest_quantile": P(

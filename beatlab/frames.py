@@ -6,8 +6,10 @@ each kind of recording into that stream.
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Iterator
 
+import cv2
 import numpy as np
 
 from beatlab.errors import InputError
@@ -15,7 +17,44 @@ from beatlab.io.recording import Recording
 from beatlab.opd import phase_to_opd, unwrap_in_time, unwrap_phase_ls
 from beatlab.settings import HolographySettings, load_settings
 
-__all__ = ["OPDSource"]
+__all__ = ["AUTO_BIN_MAX_UM", "AUTO_BIN_MIN_PX", "OPDSource", "block_mean", "choose_bin"]
+
+#: Automatic binning keeps at least this many pixels along the short side ...
+AUTO_BIN_MIN_PX = 256
+#: ... and binned pixels no larger than this (um).
+AUTO_BIN_MAX_UM = 1.0
+
+
+def choose_bin(shape: tuple[int, int], pixel_size_um: float | None) -> int:
+    """The largest binning factor that keeps the short side at :data:`AUTO_BIN_MIN_PX` px or
+    more and the binned pixel at :data:`AUTO_BIN_MAX_UM` or less (1 without a pixel size).
+
+    The contraction field of a cell sheet is smooth over several micrometres, and the optical
+    flow and the projections cost in proportion to the pixels: a 512 x 512 camera frame at
+    0.5 um analysed as 256 x 256 at 1 um costs a quarter. Noise per pixel drops by the factor.
+    """
+    if pixel_size_um is None or not np.isfinite(pixel_size_um) or pixel_size_um <= 0:
+        return 1
+    by_size = min(shape) // AUTO_BIN_MIN_PX
+    by_pixel = int(np.floor(AUTO_BIN_MAX_UM / float(pixel_size_um) + 1e-9))
+    return max(1, min(by_size, by_pixel))
+
+
+def block_mean(frame: np.ndarray, factor: int) -> np.ndarray:
+    """Average non-overlapping ``factor x factor`` blocks (NaN-aware); edges are cropped."""
+    if factor <= 1:
+        return np.asarray(frame, dtype=np.float32)
+    ny, nx = (s // factor for s in frame.shape)
+    f = np.asarray(frame[: ny * factor, : nx * factor], dtype=np.float32)
+    if not np.isnan(f).any():
+        # area resampling by an integer factor is the exact block mean (and several times
+        # faster than a reshape-mean)
+        return cv2.resize(f, (nx, ny), interpolation=cv2.INTER_AREA)
+    blocks = f.reshape(ny, factor, nx, factor)
+    with np.errstate(invalid="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN blocks stay NaN
+        out = np.nanmean(blocks, axis=(1, 3))
+    return out.astype(np.float32)
 
 
 class OPDSource:
@@ -36,6 +75,10 @@ class OPDSource:
         defaults).
     chunk_frames : int
         Frames per chunk.
+    bin : int
+        Average ``bin x bin`` pixel blocks of every OPD frame (1: none; 0: automatic,
+        :func:`choose_bin`). The attributes ``shape`` and ``pixel_size_um`` describe the
+        binned frames.
 
     Notes
     -----
@@ -54,6 +97,7 @@ class OPDSource:
         reference: np.ndarray | None = None,
         holography: HolographySettings | None = None,
         chunk_frames: int = 64,
+        bin: int = 1,
     ):
         self.recording = recording
         self.opd_scale = float(opd_scale)
@@ -83,6 +127,19 @@ class OPDSource:
             self.shape = tuple(self._reconstructor.output_shape)
         elif recording.kind != "opd":
             raise InputError(f"unknown recording kind {recording.kind!r}")
+        if int(bin) < 0:
+            raise InputError(f"bin must be 0 (automatic) or a positive factor, got {bin!r}")
+        self.bin = int(bin) or choose_bin(self.shape, self.pixel_size_um)
+        self.unbinned_shape = tuple(self.shape)
+        if self.bin > 1:
+            self.shape = tuple(n // self.bin for n in self.shape)
+            if min(self.shape) < 8:
+                raise InputError(
+                    f"bin {self.bin} leaves only {self.shape} px per frame; use a smaller "
+                    "[input] bin"
+                )
+            if self.pixel_size_um is not None:
+                self.pixel_size_um = float(self.pixel_size_um) * self.bin
 
     @property
     def n_frames(self) -> int:
@@ -94,6 +151,24 @@ class OPDSource:
         return self._reconstructor
 
     def _convert(self, block: np.ndarray) -> np.ndarray:
+        opd = self._to_opd(block)
+        if self.bin <= 1:
+            return opd
+        return np.stack([block_mean(frame, self.bin) for frame in opd])
+
+    def bin_labels(self, labels: np.ndarray) -> np.ndarray:
+        """A label image (0 outside, 1..n inside) of the unbinned frames on the binned grid.
+
+        Each binned pixel takes the label of the pixel at its block's centre.
+        """
+        labels = np.asarray(labels)
+        if self.bin <= 1 or labels.shape == tuple(self.shape):
+            return labels
+        c = self.bin // 2
+        ny, nx = self.shape
+        return labels[c :: self.bin, c :: self.bin][:ny, :nx]
+
+    def _to_opd(self, block: np.ndarray) -> np.ndarray:
         kind = self.recording.kind
         if kind == "opd":
             out = block if self.opd_scale == 1.0 else block * np.float32(self.opd_scale)

@@ -422,9 +422,12 @@ METADATA_FIELDS = (
     _f("frame_shape_px", "px", "list", "[Y, X] size of the recorded frames."),
     _f("pixel_size_um", "um", "float", "Sample-plane pixel size of the recording."),
     _f("analysis_pixel_size_um", "um", "float",
-       "Pixel size of the analysed OPD frames (differs after hologram reconstruction)."),
+       "Pixel size of the analysed OPD frames (differs after hologram reconstruction and "
+       "binning)."),
     _f("analysis_shape_px", "px", "list",
        "[Y, X] size of the analysed frames (of mask and template_nm in maps.npz)."),
+    _f("analysis_bin", "1", "int",
+       "Pixel blocks (bin x bin) averaged into one analysed pixel ([input] bin; 1: none)."),
     _f("wavelength_nm", "nm", "float", "Wavelength; null when not known."),
     _f("sources", "dict", "dict",
        "Where each value came from: format, fps_source, pixel_size_source, wavelength_source, "

@@ -40,6 +40,7 @@ class InputSettings:
     phase_scale: float
     chunk_frames: int
     min_frames: int
+    bin: int
 
 
 @dataclass(frozen=True)

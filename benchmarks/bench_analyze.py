@@ -1,12 +1,22 @@
-"""Benchmark: whole-recording analysis throughput and peak memory (run by hand).
+"""Benchmark: `beatlab analyze` against the plain approach, speed, accuracy and memory.
 
-Simulates recordings of growing length at a fixed frame size, writes them as OME-TIFF, and
-analyses each in a fresh process, reporting frames/s and the peak anonymous resident memory
-(RssAnon: the process's own allocations; pages of the memory-mapped input file are left out,
-as the system can drop them at any time), so that one can check that memory does not grow with
-recording length (frames are streamed).
+Run by hand, never as a timed test. Simulates recordings (512 x 512 px by default, 1,000 and
+4,000 frames at 50 fps), writes them as OME-TIFF and runs, alternating in the same run, each
+as a whole process:
 
-    python benchmarks/bench_analyze.py --size 256 --durations 10 20 40
+- ``beatlab analyze PATH --out DIR`` (the command a user runs, figures included);
+- the plain approach of ``benchmarks/plain_approach.py`` (Farneback flow of every frame
+  against the first at full resolution, mean magnitude, ``scipy.signal.find_peaks``).
+
+Prints frames/s of each, their ratio, peak anonymous resident memory (RssAnon, sampled by
+the parent every 20 ms: the process's own allocations; pages of the memory-mapped input are
+left out, the system can drop them at any time), and the accuracy of each against the
+simulator's truth: beat count, rate, median |error| of onset, time to peak and duration_90
+(ms) and of displacement (% of the truth).
+
+    python benchmarks/bench_analyze.py                     # 512 px, 1000 and 4000 frames
+    python benchmarks/bench_analyze.py --frames 1000 --runs 2
+    python benchmarks/bench_analyze.py --quick             # 256 px, 300 frames, one run
 """
 
 from __future__ import annotations
@@ -19,74 +29,143 @@ import tempfile
 import time
 from pathlib import Path
 
-CHILD = """
-import json, sys, threading, time
-import beatlab
+import numpy as np
+import pandas as pd
 
-def anon_mb():
-    for line in open("/proc/self/status"):
-        if line.startswith("RssAnon:"):
-            return int(line.split()[1]) / 1024
-    return float("nan")
+HERE = Path(__file__).resolve().parent
+METRICS = ("onset_s", "time_to_peak_s", "duration_90_s")
 
-peak = [anon_mb()]
-done = threading.Event()
 
-def sample():
-    while not done.is_set():
-        peak[0] = max(peak[0], anon_mb())
-        time.sleep(0.05)
+def run_measured(cmd: list[str]) -> tuple[float, float, str]:
+    """Wall time (s), peak RssAnon (MB) and stdout of a whole process."""
+    start = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    peak = 0.0
+    status = Path(f"/proc/{proc.pid}/status")
+    while proc.poll() is None:
+        try:
+            for line in status.read_text().splitlines():
+                if line.startswith("RssAnon:"):
+                    peak = max(peak, int(line.split()[1]) / 1024)
+        except (FileNotFoundError, ProcessLookupError):
+            pass
+        time.sleep(0.02)
+    out, err = proc.communicate()
+    seconds = time.perf_counter() - start
+    if proc.returncode != 0:
+        raise RuntimeError(f"{cmd[:3]} failed: {err.strip().splitlines()[-1:]}")
+    return seconds, peak, out
 
-threading.Thread(target=sample, daemon=True).start()
-t = time.perf_counter()
-res = beatlab.analyze(sys.argv[1])
-dt = time.perf_counter() - t
-done.set()
-peak[0] = max(peak[0], anon_mb())
-print(json.dumps({"seconds": dt, "peak_anon_mb": peak[0], "beats": res.summary["beat_count"],
-                  "frames": res.summary["metadata"]["frames"]}))
-"""
+
+def accuracy(found: pd.DataFrame, truth: pd.DataFrame, fps: float) -> dict:
+    """Beat count, rate and median |errors| of the found beats matched to the true ones."""
+    out = {"beats": len(found), "true_beats": len(truth)}
+    peaks = np.sort(found["peak_s"].to_numpy()) if len(found) else np.zeros(0)
+    out["rate_bpm"] = 60.0 / float(np.mean(np.diff(peaks))) if peaks.size > 1 else np.nan
+    if not len(found):
+        return out | {m: np.nan for m in (*METRICS, "displacement_pct")}
+    errors: dict[str, list[float]] = {m: [] for m in (*METRICS, "displacement_pct")}
+    for _, beat in truth.iterrows():
+        k = int(np.argmin(np.abs(found["peak_s"].to_numpy() - beat["peak_s"])))
+        if abs(found["peak_s"].iloc[k] - beat["peak_s"]) > 0.25:
+            continue
+        for m in METRICS:
+            errors[m].append(abs(float(found[m].iloc[k]) - float(beat[m])) * 1e3)
+        errors["displacement_pct"].append(
+            abs(float(found["displacement_um"].iloc[k]) / beat["displacement_um"] - 1) * 100
+        )
+    return out | {m: float(np.nanmedian(v)) if v else np.nan for m, v in errors.items()}
+
+
+def simulate(tmp: Path, *, size: int, frames: int, fps: float, seed: int) -> Path:
+    from beatlab.synth import simulate_recording, write_simulation
+
+    sim = simulate_recording(
+        duration_s=frames / fps, fps=fps, shape_px=(size, size), rate_bpm=72, rng=seed
+    )
+    path = tmp / f"bench_{size}_{frames}.ome.tif"
+    write_simulation(sim, path)
+    return path
+
+
+def one_length(tmp: Path, path: Path, *, fps: float, pixel_um: float, runs: int) -> dict:
+    truth = pd.DataFrame(
+        json.loads(path.with_name(path.name[:-8] + ".truth.json").read_text())["beats"]
+    )
+    n_frames = round(
+        json.loads(path.with_name(path.name[:-8] + ".truth.json").read_text())["n_frames"]
+    )
+    results: dict[str, list] = {"beatlab": [], "plain": []}
+    for run in range(runs):
+        order = ("beatlab", "plain") if run % 2 == 0 else ("plain", "beatlab")
+        for name in order:
+            if name == "beatlab":
+                out_dir = tmp / f"out_{run}"
+                cmd = [
+                    sys.executable,
+                    "-m",
+                    "beatlab",
+                    "analyze",
+                    str(path),
+                    "--out",
+                    str(out_dir),
+                ]
+                seconds, peak, _ = run_measured(cmd)
+                found = pd.read_csv(out_dir / "beats.csv")
+            else:
+                cmd = [sys.executable, str(HERE / "plain_approach.py"), str(path), str(fps),
+                       str(pixel_um)]  # fmt: skip
+                seconds, peak, stdout = run_measured(cmd)
+                found = pd.DataFrame(json.loads(stdout.strip().splitlines()[-1])["beats"])
+            results[name].append((seconds, peak, accuracy(found, truth, fps)))
+    summary = {"frames": n_frames}
+    for name, rows in results.items():
+        summary[name] = {
+            "frames_s": n_frames / float(np.median([r[0] for r in rows])),
+            "peak_anon_mb": float(max(r[1] for r in rows)),
+            "accuracy": rows[-1][2],
+        }
+    return summary
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--size", type=int, default=256, help="frame side in px")
-    parser.add_argument("--fps", type=float, default=30.0)
-    parser.add_argument("--durations", type=float, nargs="+", default=[10.0, 20.0, 40.0])
+    parser.add_argument("--size", type=int, default=512, help="frame side, px")
+    parser.add_argument("--frames", type=int, nargs="+", default=[1000, 4000])
+    parser.add_argument("--fps", type=float, default=50.0)
+    parser.add_argument("--runs", type=int, default=2, help="alternating runs of each")
+    parser.add_argument("--seed", type=int, default=0)
+    parser.add_argument("--quick", action="store_true", help="256 px, 300 frames, one run")
     args = parser.parse_args()
-    from beatlab.synth import simulate_recording, write_simulation
-
+    if args.quick:
+        args.size, args.frames, args.runs = 256, [300], 1
+    pixel_um = 0.5  # the simulator's default sample-plane pixel
+    rows = []
+    with tempfile.TemporaryDirectory() as tmp_name:
+        tmp = Path(tmp_name)
+        for frames in args.frames:
+            path = simulate(tmp, size=args.size, frames=frames, fps=args.fps, seed=args.seed)
+            rows.append(one_length(tmp, path, fps=args.fps, pixel_um=pixel_um, runs=args.runs))
+            path.unlink()
+    print(f"\n{args.size} x {args.size} px, {args.fps:g} fps, median of {args.runs} run(s)")
     print(
-        f"{'frames':>7} {'size':>5} {'file MB':>8} {'s':>7} {'frames/s':>9} "
-        f"{'peak anon MB':>12} {'beats':>6}"
+        f"{'frames':>6} {'method':>8} {'frames/s':>9} {'ratio':>6} {'anon MB':>8} {'beats':>7} "
+        f"{'bpm':>6} {'onset ms':>9} {'ttp ms':>7} {'d90 ms':>7} {'disp %':>7}"
     )
-    with tempfile.TemporaryDirectory() as tmp:
-        for duration in args.durations:
-            sim = simulate_recording(
-                duration_s=duration,
-                fps=args.fps,
-                shape_px=(args.size, args.size),
-                rate_bpm=60,
-                rng=0,
-            )
-            path = Path(tmp) / f"bench_{duration:g}.ome.tif"
-            write_simulation(sim, path)
-            del sim
-            t0 = time.perf_counter()
-            out = subprocess.run(
-                [sys.executable, "-c", CHILD, str(path)],
-                check=True,
-                capture_output=True,
-                text=True,
-            )
-            _ = time.perf_counter() - t0
-            r = json.loads(out.stdout.strip().splitlines()[-1])
-            mb = path.stat().st_size / 2**20
+    for row in rows:
+        base = row["plain"]["frames_s"]
+        for name in ("beatlab", "plain"):
+            r, a = row[name], row[name]["accuracy"]
             print(
-                f"{r['frames']:>7} {args.size:>5} {mb:>8.1f} {r['seconds']:>7.2f} "
-                f"{r['frames'] / r['seconds']:>9.1f} {r['peak_anon_mb']:>12.1f} "
-                f"{r['beats']:>6}"
+                f"{row['frames']:>6} {name:>8} {r['frames_s']:>9.1f} "
+                f"{r['frames_s'] / base:>6.2f} {r['peak_anon_mb']:>8.0f} "
+                f"{a['beats']:>3}/{a['true_beats']:<3} {a['rate_bpm']:>6.1f} "
+                f"{a['onset_s']:>9.1f} {a['time_to_peak_s']:>7.1f} {a['duration_90_s']:>7.1f} "
+                f"{a['displacement_pct']:>7.1f}"
             )
+    if len(rows) > 1:
+        mem = [row["beatlab"]["peak_anon_mb"] for row in rows]
+        print(f"beatlab peak memory, longest / shortest: {max(mem) / min(mem):.3f}")
 
 
 if __name__ == "__main__":

@@ -1,7 +1,7 @@
 import numpy as np
 import pytest
 
-from beatlab.errors import MetadataError
+from beatlab.errors import InputError, MetadataError
 from beatlab.frames import OPDSource
 from beatlab.io import Recording
 from beatlab.io.readers import _ArraySource
@@ -58,3 +58,41 @@ def test_select_chunks_converts_only_the_kept_frames():
     got = list(src.select_chunks(keep))
     assert [list(idx) for idx, _ in got] == [[0, 3], [4]]
     np.testing.assert_allclose(np.concatenate([f for _, f in got]), opd[keep], rtol=1e-5)
+
+
+@pytest.mark.parametrize(
+    ("shape", "pixel_um", "expected"),
+    [
+        ((512, 512), 0.5, 2),  # 256 px at 1.0 um
+        ((1024, 1280), 0.25, 4),  # 256 x 320 px at 1.0 um
+        ((2048, 2048), 0.1, 8),  # 256 px at 0.8 um (the size bound)
+        ((512, 512), 1.0, 1),  # already 1 um
+        ((256, 256), 0.2, 1),  # already at 256 px
+        ((512, 512), None, 1),  # no pixel size: no binning
+    ],
+)
+def test_automatic_bin_keeps_256_px_and_1_um(shape, pixel_um, expected):
+    from beatlab.frames import choose_bin
+
+    assert choose_bin(shape, pixel_um) == expected
+
+
+def test_binned_frames_are_block_means_on_a_coarser_grid():
+    rng = np.random.default_rng(0)
+    opd = rng.normal(100, 10, (3, 33, 34)).astype(np.float32)
+    opd[1, 0, 0] = np.nan  # a NaN pixel: the NaN-aware mean of its block's other pixels
+    src = OPDSource(_rec(opd, "opd"), bin=2)
+    assert src.shape == (16, 17) and src.unbinned_shape == (33, 34)
+    assert src.pixel_size_um == pytest.approx(1.0)
+    out = np.concatenate([block for _, block in src.chunks()])
+    expected = opd[:, :32, :34].reshape(3, 16, 2, 17, 2).mean(axis=(2, 4))
+    expected[1, 0, 0] = np.mean([opd[1, 0, 1], opd[1, 1, 0], opd[1, 1, 1]])
+    np.testing.assert_allclose(out, expected, rtol=1e-6)
+    labels = np.zeros((33, 34), int)
+    labels[10:20, 4:12] = 3
+    binned = src.bin_labels(labels)
+    assert binned.shape == (16, 17)
+    assert set(np.unique(binned)) == {0, 3} and (binned == 3).sum() == 5 * 4
+    assert OPDSource(_rec(opd, "opd"), bin=1).shape == (33, 34)
+    with pytest.raises(InputError, match="bin 8 leaves only"):
+        OPDSource(_rec(opd, "opd"), bin=8)

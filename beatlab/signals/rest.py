@@ -14,9 +14,11 @@ from dataclasses import dataclass, field, replace
 
 import cv2
 import numpy as np
+from scipy import fft as sp_fft
 from scipy import ndimage
 
 from beatlab.errors import InputError
+from beatlab.frames import block_mean
 from beatlab.signals.level import PlaneLeveller
 
 __all__ = ["RestTemplate", "block_mean", "estimate_rest_template", "shift_image"]
@@ -93,16 +95,13 @@ class RestTemplate:
         return np.clip(np.searchsorted(starts, times_s, side="right") - 1, 0, len(starts) - 1)
 
 
-def block_mean(frame: np.ndarray, factor: int) -> np.ndarray:
-    """Average non-overlapping ``factor x factor`` blocks (NaN-aware); edges are cropped."""
-    if factor <= 1:
-        return np.asarray(frame, dtype=np.float32)
-    ny, nx = (s // factor for s in frame.shape)
-    f = np.asarray(frame[: ny * factor, : nx * factor], dtype=np.float32)
-    blocks = f.reshape(ny, factor, nx, factor)
-    with np.errstate(invalid="ignore"):
-        out = np.nanmean(blocks, axis=(1, 3)) if np.isnan(f).any() else blocks.mean(axis=(1, 3))
-    return out.astype(np.float32)
+def _shift_ramp(freq: np.ndarray, shift: float, *, nyquist: int | None) -> np.ndarray:
+    """Phase ramp of a shift; the Nyquist bin of an even length (its own mirror) is kept real
+    (cos), the Hermitian-symmetric choice that keeps a real image real."""
+    ramp = np.exp(-2j * np.pi * freq * shift)
+    if nyquist is not None:
+        ramp[nyquist] = np.cos(np.pi * shift)
+    return ramp.astype(np.complex64)
 
 
 def shift_image(image: np.ndarray, shift_px: np.ndarray) -> np.ndarray:
@@ -114,16 +113,35 @@ def shift_image(image: np.ndarray, shift_px: np.ndarray) -> np.ndarray:
     """
     image = np.asarray(image, dtype=np.float32)
     bad = ~np.isfinite(image)
-    work = np.where(bad, np.nanmedian(image) if (~bad).any() else 0.0, image)
-    pad = int(np.ceil(np.max(np.abs(shift_px)))) + 8
+    has_bad = bool(bad.any())
+    work = image
+    if has_bad:
+        fill = np.float32(np.median(image[~bad])) if (~bad).any() else np.float32(0.0)
+        work = np.where(bad, fill, image)
+    dx, dy = float(shift_px[0]), float(shift_px[1])
+    pad = int(np.ceil(max(abs(dx), abs(dy)))) + 8
     pad = min(pad, min(image.shape) - 1)
-    padded = np.pad(work, pad, mode="reflect")
-    moved = np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(padded), (shift_px[1], shift_px[0])))
-    out = moved.real[pad:-pad, pad:-pad].astype(np.float32)
-    if bad.any():
-        shifted = ndimage.shift(
-            bad.astype(np.float32), (shift_px[1], shift_px[0]), order=1, mode="nearest"
-        )
+    ny, nx = (n + 2 * pad for n in image.shape)
+    fy, fx = sp_fft.next_fast_len(ny, real=True), sp_fft.next_fast_len(nx, real=True)
+    # reflect-pad to the fast transform size, the extra split between both sides, so the
+    # wrap-around joins mirror images of rows (columns) equally far inside the image
+    top, left = pad + (fy - ny) // 2, pad + (fx - nx) // 2
+    top, left = min(top, image.shape[0] - 1), min(left, image.shape[1] - 1)
+    padded = np.pad(
+        work,
+        ((top, fy - image.shape[0] - top), (left, fx - image.shape[1] - left)),
+        mode="reflect",
+    )
+    spectrum = sp_fft.rfft2(padded, workers=1)
+    ramp_y = _shift_ramp(sp_fft.fftfreq(fy), dy, nyquist=fy // 2 if fy % 2 == 0 else None)
+    ramp_x = _shift_ramp(sp_fft.rfftfreq(fx), dx, nyquist=fx // 2 if fx % 2 == 0 else None)
+    spectrum *= ramp_y[:, None]
+    spectrum *= ramp_x[None, :]
+    moved = sp_fft.irfft2(spectrum, s=(fy, fx), workers=1)
+    out = np.ascontiguousarray(moved[top : top + image.shape[0], left : left + image.shape[1]])
+    out = out.astype(np.float32, copy=False)
+    if has_bad:
+        shifted = ndimage.shift(bad.astype(np.float32), (dy, dx), order=1, mode="nearest")
         out[shifted > 0.01] = np.nan
     return out
 

@@ -75,5 +75,6 @@ def open_source(
         reference=reference if rec.kind == "hologram" else None,
         holography=settings.holography,
         chunk_frames=inp.chunk_frames,
+        bin=inp.bin,
     )
     return rec, source

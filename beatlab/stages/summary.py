@@ -58,6 +58,7 @@ def _metadata(recording, source) -> dict:
         "pixel_size_um": recording.pixel_size_um,
         "analysis_pixel_size_um": float(source.pixel_size_um),
         "analysis_shape_px": list(source.shape),
+        "analysis_bin": int(source.bin),
         "wavelength_nm": recording.wavelength_nm,
         "sources": {key: recording.metadata.get(key) for key in _SOURCES},
     }
