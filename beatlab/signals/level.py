@@ -96,10 +96,53 @@ class PlaneLeveller:
             coef = _weighted_solve(a, d, w)
         return coef
 
-    def level(self, frame: np.ndarray) -> np.ndarray:
-        """Return ``frame`` minus its fitted plane, as float32."""
-        coef = self.fit(frame)
+    def fit_stack(self, frames: np.ndarray) -> np.ndarray:
+        """:meth:`fit` of every frame of a stack (T, Y, X) at once, coefficients (T, k).
+
+        The same estimator, vectorised over frames (many small fits cost mostly Python
+        overhead); a stack with non-finite values at the fitted pixels is fitted frame by frame.
+        """
+        stack = np.asarray(frames, dtype=np.float32)
+        n = stack.shape[0]
+        diff = (stack.reshape(n, -1)[:, self._idx] - self.template.ravel()[self._idx]).astype(
+            np.float64
+        )
+        a = self._design
+        if not np.isfinite(diff).all() or diff.shape[1] < a.shape[1]:
+            return np.stack([self.fit(frame) for frame in stack]) if n else np.zeros((0, 0))
+        coef = np.linalg.lstsq(a, diff.T, rcond=None)[0].T
+        r = diff - coef @ a.T
+        scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
+        robust = scale > 0
+        for step in range(3):
+            if not robust.any():
+                break
+            if step:
+                r = diff - coef @ a.T
+            u = r[robust] / (4.685 * scale[robust, None])
+            w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
+            normal = np.einsum("tp,pi,pj->tij", w, a, a)
+            rhs = np.einsum("tp,pi->ti", w * diff[robust], a)
+            try:
+                coef[robust] = np.linalg.solve(normal, rhs[..., None])[..., 0]
+            except np.linalg.LinAlgError:  # a degenerate weighting: frame by frame
+                return np.stack([self.fit(frame) for frame in stack])
+        return coef
+
+    def _plane(self, coef: np.ndarray) -> np.ndarray | np.float32:
         plane = np.float32(coef[0])
         if self.tilt:
             plane = plane + np.float32(coef[1]) * self._x + np.float32(coef[2]) * self._y
-        return np.asarray(frame, dtype=np.float32) - plane
+        return plane
+
+    def level(self, frame: np.ndarray) -> np.ndarray:
+        """Return ``frame`` minus its fitted plane, as float32."""
+        return np.asarray(frame, dtype=np.float32) - self._plane(self.fit(frame))
+
+    def level_stack(self, frames: np.ndarray) -> np.ndarray:
+        """:meth:`level` of every frame of a stack (T, Y, X), float32."""
+        stack = np.asarray(frames, dtype=np.float32)
+        out = np.empty_like(stack)
+        for t, coef in enumerate(self.fit_stack(stack)):
+            out[t] = stack[t] - self._plane(coef)
+        return out

@@ -181,10 +181,16 @@ class PatternAccumulator:
 
         ``weight``: a float >= 0, or one per weight group (:attr:`n_weight_groups`).
         """
+        self.add_gathered(
+            frame, self.index.gather(field_px), self.index.gather(opd_diff_nm), weight
+        )
+
+    def add_gathered(self, frame: int, field_px: np.ndarray, opd_diff_nm: np.ndarray, weight):
+        """:meth:`add` for values already at the used pixels ((M, 2) and (M,), NaN as 0)."""
         w = np.broadcast_to(np.asarray(weight, dtype=np.float64), (self.n_weight_groups,))
         per_pixel = w[self._pixel_group]
-        f = self.index.gather(field_px).astype(np.float64)
-        d = self.index.gather(opd_diff_nm).astype(np.float64)
+        f = np.asarray(field_px, dtype=np.float64)
+        d = np.asarray(opd_diff_nm, dtype=np.float64)
         with self._lock:
             self._field += per_pixel[:, None] * f
             self._opd += per_pixel * d

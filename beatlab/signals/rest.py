@@ -95,6 +95,10 @@ class RestTemplate:
         return np.clip(np.searchsorted(starts, times_s, side="right") - 1, 0, len(starts) - 1)
 
 
+#: Low-resolution frames levelled together (bounds the temporaries of the vectorised fit).
+_LEVEL_BATCH = 256
+
+
 def _shift_ramp(freq: np.ndarray, shift: float, *, nyquist: int | None) -> np.ndarray:
     """Phase ramp of a shift; the Nyquist bin of an even length (its own mirror) is kept real
     (cos), the Hermitian-symmetric choice that keeps a real image real."""
@@ -249,7 +253,7 @@ def _average_frames(source, idx, shifts, level_tilt, *, anchor):
             f = shift_image(f, -delta)
         moved.append(f)
     leveller = PlaneLeveller(moved[0], tilt=level_tilt)
-    stack = np.stack([leveller.level(f) for f in moved])
+    stack = leveller.level_stack(np.stack(moved))
     with np.errstate(invalid="ignore"):
         template = np.nanmean(stack, axis=0) if np.isnan(stack).any() else stack.mean(axis=0)
     k = stack.shape[0]
@@ -370,10 +374,12 @@ def estimate_rest_template(
         if not drifting:
             shifts[:] = 0.0
         for t in range(n):
-            moved = shift_image(low[t], -shifts[t]) if drifting else low[t]
-            moved = leveller.level(moved)
-            aligned[t] = moved
-            deviation[t] = np.sqrt(np.mean((moved - ref)[2:-2, 2:-2] ** 2))
+            aligned[t] = shift_image(low[t], -shifts[t]) if drifting else low[t]
+        for t0 in range(0, n, _LEVEL_BATCH):
+            part = slice(t0, min(t0 + _LEVEL_BATCH, n))
+            aligned[part] = leveller.level_stack(aligned[part])
+            inner = (aligned[part] - ref)[:, 2:-2, 2:-2]
+            deviation[part] = np.sqrt(np.mean(inner**2, axis=(1, 2)))
         if iteration == 0:
             # the temporal median is a partly contracted state when beats fill most of the
             # time; start from the relaxed end of the main activity axis instead

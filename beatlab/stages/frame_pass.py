@@ -20,7 +20,6 @@ Three rounds, each over a subset of the frames:
 from __future__ import annotations
 
 import os
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -37,6 +36,7 @@ from beatlab.signals.projection import (
 )
 from beatlab.signals.rest import RestTemplate, shift_image
 from beatlab.signals.tracker import FlowTracker
+from beatlab.stages._parallel import FrameMapper
 from beatlab.stages.reference import Reference
 
 __all__ = [
@@ -366,6 +366,55 @@ class _FrameReducer:
         return meas.flow_px, aligned - template, shift, meas.clipped_fraction
 
 
+class _FrameWork:
+    """What one frame's work needs, and the work of each round (picklable results only).
+
+    Forked worker processes inherit it (:mod:`beatlab.stages._parallel`); ``drift_px`` and
+    ``patterns`` are filled in by the rounds before the ones that use them.
+    """
+
+    def __init__(self, reducer, cells, mask, *, frame_ref, template_k):
+        self.reducer = reducer
+        self.cells = cells
+        self.mask = mask
+        self.frame_ref = frame_ref
+        self.template_k = template_k
+        self.pattern_frames: set = set()
+        self.drift_px: np.ndarray | None = None
+        self.patterns = None
+
+    def _given(self, i):
+        return None if self.drift_px is None else self.drift_px[i]
+
+    def drift(self, i, frame):
+        """The frame's own rigid shift (2,), px."""
+        return self.reducer.fields(frame, None, self.frame_ref[i])[2]
+
+    def pattern(self, i, frame):
+        """The frame's field and OPD difference at the used pixels."""
+        flow, diff, _, _ = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
+        return self.cells.gather(flow).astype(np.float32), self.cells.gather(diff)
+
+    def project(self, i, frame):
+        """Per-cell projections, own terms (pattern and template frames), shift, clipping,
+        whether any mask pixel is finite."""
+        cells, pat = self.cells, self.patterns
+        flow, diff, shift, clip = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
+        f = cells.gather(flow)
+        d = cells.gather(diff)
+        own = None
+        if i in self.pattern_frames or self.template_k[i] > 1:
+            own = tuple(cells.cell_sums(v) for v in pat.own_terms(f, d))
+        return (
+            cells.cell_sums((f * pat.field_perp).sum(axis=1)),
+            cells.cell_sums(d * pat.opd_perp),
+            own,
+            shift,
+            clip,
+            bool(np.isfinite(flow[self.mask]).any()),
+        )
+
+
 def _group_traces(sums, cells, rest, segment, finite):
     """Mask displacement and OPD, tile and label displacement (px, nm): 0 at rest, NaN where
     a frame has no finite pixel."""
@@ -389,6 +438,7 @@ def measure_frames(
     times_s: np.ndarray,
     settings: Settings,
     workers: int | None = None,
+    parallel: str = "auto",
     progress: bool = False,
 ) -> FrameSignals:
     """The per-frame pass: every frame levelled, tracked and projected onto the patterns.
@@ -404,7 +454,10 @@ def measure_frames(
     settings : Settings
         Uses ``flow``, ``template.level_tilt`` and ``maps.tile_um``.
     workers : int, optional
-        Threads (default: CPUs, at most 4); OpenCV and NumPy release the GIL.
+        Parallel workers (default: CPUs, at most 4); 1 runs in this process.
+    parallel : str
+        ``"auto"`` (forked processes where the platform forks, else threads),
+        ``"processes"`` or ``"threads"`` (:class:`beatlab.stages._parallel.FrameMapper`).
     progress : bool
         Show a progress bar.
 
@@ -430,20 +483,24 @@ def measure_frames(
 
     n = times_s.size
     px_um = float(source.pixel_size_um)
-    reducer = _FrameReducer(reference, settings, px_um)
     rest = reference.rest
     tile_px = max(4, round(settings.maps.tile_um / px_um))
     tiles = tile_labels(reference.mask.shape, tile_px=tile_px)
     n_tiles = int(tiles.max()) + 1
     cells = _cell_index(reference, tiles, n_tiles)
     accumulator = PatternAccumulator(cells, weight_family="labels")
-    frame_ref = np.maximum(rest.segment_of(times_s), 0)
+    work = _FrameWork(
+        _FrameReducer(reference, settings, px_um),
+        cells,
+        reference.mask,
+        frame_ref=np.maximum(rest.segment_of(times_s), 0),
+        template_k=_template_membership(rest, n),
+    )
     shifts = np.zeros((n, 2))
     clipped = np.zeros(n)
     field_dot = np.zeros((n, cells.n_cells), dtype=np.float32)
     opd_dot = np.zeros((n, cells.n_cells), dtype=np.float32)
     field_sq, opd_sq = {}, {}
-    template_k = _template_membership(rest, n)
     in_template: dict[int, tuple[np.ndarray, np.ndarray]] = {}
     finite = np.zeros(n, dtype=bool)
 
@@ -460,65 +517,46 @@ def measure_frames(
         rest, reference.labels, n_labels=cells.families["labels"].shape[1]
     )
     weight_of = dict(zip(pattern_idx.tolist(), pattern_w, strict=True))
-    drift_px: np.ndarray | None = None
-    state: dict = {}
+    work.pattern_frames = set(weight_of)
 
-    def drift_only(i, frame):
-        _, _, shift, _ = reducer.fields(frame, None, frame_ref[i])
-        shifts[i] = shift
-
-    def pattern(i, frame):
-        flow, diff, _, _ = reducer.fields(frame, _given(i), frame_ref[i])
-        accumulator.add(i, flow, diff, weight_of[i])
-
-    def project(i, frame):
-        flow, diff, shift, clip = reducer.fields(frame, _given(i), frame_ref[i])
-        f = cells.gather(flow)
-        d = cells.gather(diff)
-        pat = state["patterns"]
-        field_dot[i] = cells.cell_sums((f * pat.field_perp).sum(axis=1))
-        opd_dot[i] = cells.cell_sums(d * pat.opd_perp)
-        if i in weight_of or template_k[i] > 1:
-            own_f, own_d = (cells.cell_sums(v) for v in pat.own_terms(f, d))
-            if i in weight_of:
-                field_sq[i], opd_sq[i] = own_f, own_d
-            if template_k[i] > 1:
-                in_template[i] = (own_f, own_d)
-        shifts[i], clipped[i] = shift, clip
-        inside = flow[reference.mask]
-        finite[i] = np.isfinite(inside).any()
-
-    def _given(i):
-        return None if drift_px is None else drift_px[i]
-
-    rounds = [(pattern_idx, pattern), (np.arange(n), project)]
+    rounds = [(pattern_idx, "pattern"), (np.arange(n), "project")]
     if interpolate:
-        rounds.insert(0, (drift_frames, drift_only))
-    total = sum(idx.size for idx, _ in rounds)
-    workers = workers or min(4, os.cpu_count() or 1)
-    with (
-        ThreadPoolExecutor(max_workers=workers) as pool,
-        tqdm(
-            total=total, desc="analysing", unit="frame", disable=not progress, leave=False
-        ) as bar,
-    ):
-        for idx, work in rounds:
-            if work is project:
-                state["patterns"] = accumulator.patterns()
+        rounds.insert(0, (drift_frames, "drift"))
+    mapper = FrameMapper(workers or min(4, os.cpu_count() or 1), mode=parallel)
+    with tqdm(
+        total=sum(idx.size for idx, _ in rounds),
+        desc="analysing",
+        unit="frame",
+        disable=not progress,
+        leave=False,
+    ) as bar:
+        for idx, method in rounds:
+            if method == "project":
+                work.patterns = accumulator.patterns()
             keep = np.zeros(n, dtype=bool)
             keep[idx] = True
-            for chunk, frames in source.select_chunks(keep):
-                list(pool.map(work, chunk, frames))
-                bar.update(len(chunk))
-            if work is drift_only:
-                drift_px = interpolate_drift(times_s, idx, shifts[idx])
+            for done, results in mapper.run(work, method, source.select_chunks(keep)):
+                for i, result in zip(done.tolist(), results, strict=True):
+                    if method == "drift":
+                        shifts[i] = result
+                    elif method == "pattern":
+                        accumulator.add_gathered(i, *result, weight_of[i])
+                    else:
+                        field_dot[i], opd_dot[i], own, shifts[i], clipped[i], finite[i] = result
+                        if own is not None and i in weight_of:
+                            field_sq[i], opd_sq[i] = own
+                        if own is not None and work.template_k[i] > 1:
+                            in_template[i] = own
+                bar.update(len(done))
+            if method == "drift":
+                work.drift_px = interpolate_drift(times_s, idx, shifts[idx])
     if not finite.any():
         raise InputError(
             f"{source.recording.source}: every frame is NaN inside the cell mask; nothing to "
             "analyse"
         )
-    _share_template_noise(field_dot, opd_dot, in_template, template_k)
-    sums = state["patterns"].sums(
+    _share_template_noise(field_dot, opd_dot, in_template, work.template_k)
+    sums = work.patterns.sums(
         cells,
         field_dot,
         opd_dot,
@@ -550,5 +588,5 @@ def measure_frames(
         rest_frames=np.asarray(rest.rest, dtype=bool),
         segment=segment,
         drift_reference=drift_reference if settings.flow.rigid != "none" else "none",
-        template_clipped_fraction=float(reducer.refs[0][2].template_clipped_fraction),
+        template_clipped_fraction=float(work.reducer.refs[0][2].template_clipped_fraction),
     )

@@ -59,3 +59,20 @@ def test_a_large_frame_is_fitted_on_a_bounded_subsample_with_the_same_precision(
     assert abs(float(np.mean(out[background]))) < 0.05
     fine = PlaneLeveller(template, max_pixels=10**7).fit(frame)
     np.testing.assert_allclose(leveller.fit(frame), fine, atol=0.05)
+
+
+def test_a_stack_is_levelled_exactly_as_frame_by_frame():
+    rng = np.random.default_rng(3)
+    template = _scene(rng)
+    y, x = np.mgrid[:64, :80]
+    stack = np.stack(
+        [template + k + 0.03 * k * x - 0.02 * y + rng.normal(0, 0.5, template.shape)
+         for k in range(6)]
+    ).astype(np.float32)  # fmt: skip
+    stack[2, 10:30, 10:30] += 80.0  # moving cells in one frame
+    stack[4] = template  # an exact copy: zero residual scale, the plain fit
+    leveller = PlaneLeveller(template)
+    one_by_one = np.stack([leveller.level(f) for f in stack])
+    np.testing.assert_allclose(leveller.level_stack(stack), one_by_one, atol=1e-4)
+    stack[5, 4, 4] = np.nan  # a NaN at a fitted pixel: frame by frame, same result
+    np.testing.assert_allclose(leveller.level_stack(stack)[:5], one_by_one[:5], atol=1e-4)

@@ -1,0 +1,62 @@
+"""Per-frame work mapped in this process, in threads and in forked processes: same results."""
+
+import numpy as np
+import pytest
+
+from beatlab.stages._parallel import FrameMapper, can_fork
+
+
+class _Work:
+    """Inherits its state at the fork: the offset is set before the round runs."""
+
+    def __init__(self):
+        self.offset = 0.0
+
+    def total(self, i, frame):
+        return i, float(frame.sum()) + self.offset
+
+
+def _chunks(frames, size):
+    for start in range(0, len(frames), size):
+        idx = np.arange(start, min(start + size, len(frames)))
+        yield idx, frames[idx]
+
+
+@pytest.mark.parametrize("mode", ["auto", "processes", "threads"])
+@pytest.mark.parametrize("workers", [1, 2, 3])
+def test_every_mode_returns_every_frame_in_order(mode, workers):
+    frames = np.random.default_rng(0).normal(size=(23, 4, 5))
+    work = _Work()
+    work.offset = 7.0
+    mapper = FrameMapper(workers, mode=mode)
+    assert mapper.processes == (mode != "threads" and workers > 1 and can_fork())
+    seen = []
+    for idx, results in mapper.run(work, "total", _chunks(frames, 5)):
+        assert [r[0] for r in results] == idx.tolist()
+        seen.extend(results)
+    assert [i for i, _ in seen] == list(range(23))
+    np.testing.assert_allclose([v for _, v in seen], frames.sum(axis=(1, 2)) + 7.0)
+
+
+def test_unknown_mode_is_refused():
+    with pytest.raises(ValueError, match="processes, threads"):
+        FrameMapper(2, mode="gpu")
+
+
+def test_forked_workers_do_not_hang_on_opencv():
+    # OpenCV's thread pool is used here first; forked workers then run OpenCV inline
+    import cv2
+
+    image = np.random.default_rng(1).normal(size=(64, 64)).astype(np.float32)
+    cv2.GaussianBlur(image, (9, 9), 2.0)
+
+    class Blur:
+        def blur(self, i, frame):
+            return float(cv2.GaussianBlur(frame, (9, 9), 2.0).sum())
+
+    frames = np.stack([image * k for k in range(6)])
+    got = [v for _, r in FrameMapper(2, mode="processes").run(Blur(), "blur", _chunks(frames, 3))
+           for v in r]  # fmt: skip
+    expected = [float(cv2.GaussianBlur(f, (9, 9), 2.0).sum()) for f in frames]
+    np.testing.assert_allclose(got, expected, rtol=1e-6)
+    assert cv2.getNumThreads() >= 1
