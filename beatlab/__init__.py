@@ -4,6 +4,7 @@ Research use only: not a diagnostic or medical device.
 """
 
 from beatlab._version import __version__
+from beatlab.batch import analyze_batch
 from beatlab.config import default_config, load_config
 from beatlab.errors import (
     AnalysisError,
@@ -30,6 +31,7 @@ __all__ = [
     "Settings",
     "__version__",
     "analyze",
+    "analyze_batch",
     "default_config",
     "load_config",
     "load_settings",

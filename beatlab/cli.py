@@ -1,4 +1,4 @@
-"""Command line: ``beatlab analyze | reconstruct | simulate``.
+"""Command line: ``beatlab analyze | batch | compare | reconstruct | simulate``.
 
 Thin: parses, calls the API, maps errors to exit codes (0 success, 1 analysis failure,
 2 bad usage or unreadable input).
@@ -38,6 +38,16 @@ def _positive(text: str) -> float:
     return value
 
 
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be 1 or more, got {text!r}")
+    return value
+
+
 def _add_metadata(p, *, kind=True):
     if kind:
         p.add_argument(
@@ -57,6 +67,67 @@ def _add_metadata(p, *, kind=True):
         type=_positive,
         metavar="NM",
         help="illumination wavelength (needed for phase and holograms)",
+    )
+
+
+def _add_batch(sub) -> None:
+    """The ``batch`` and ``compare`` sub-commands."""
+    b = sub.add_parser(
+        "batch",
+        help="analyse every recording of a plate layout and compare conditions",
+        description="Analyse every recording listed in a layout CSV (one row per recording: "
+        "path, plate, well, fov, compound, concentration, role, ...) and write "
+        "recordings.csv, wells.csv, beats.csv, the statistics tables and batch.json. "
+        "Finished recordings are cached, so a re-run analyses only what is missing. Exit "
+        "code 1 when any recording failed (the others are still written).",
+    )
+    b.add_argument("layout", metavar="LAYOUT", help="layout CSV, one row per recording")
+    b.add_argument("--out", metavar="DIR", help="output folder (default: LAYOUT stem + '_batch')")
+    b.add_argument("--config", metavar="FILE", help="TOML file of parameter overrides")
+    b.add_argument(
+        "--workers",
+        type=_positive_int,
+        metavar="N",
+        help="recordings analysed at once on this machine (default: every core)",
+    )
+    b.add_argument(
+        "--threads",
+        type=_positive_int,
+        metavar="N",
+        help="threads per recording (default: cores / workers)",
+    )
+    b.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="run on a Dask cluster, e.g. tcp://host:8786 (its workers must see the files)",
+    )
+    b.add_argument("--no-progress", action="store_true", help="no progress bar")
+    _add_metrics(b)
+
+    c = sub.add_parser(
+        "compare",
+        help="recompute the statistics tables of a batch folder without analysing",
+        description="Rewrite wells.csv and the statistics tables of a batch folder from its "
+        "recordings.csv (edits such as newly excluded rows count) or, when that is missing "
+        "or --config is given, from its cache. Nothing is analysed.",
+    )
+    c.add_argument("dir", metavar="DIR", help="the --out folder of beatlab batch")
+    c.add_argument(
+        "--config",
+        metavar="FILE",
+        help="use the cached results of this configuration (default: the batch's own)",
+    )
+    _add_metrics(c)
+
+
+def _add_metrics(p) -> None:
+    p.add_argument(
+        "--metrics",
+        nargs="+",
+        metavar="NAME",
+        help="recording metrics to normalise and compare (default: beat_rate_bpm "
+        "duration_90_s duration_90_fridericia_s displacement_um contraction_velocity_um_s "
+        "irregular_fraction)",
     )
 
 
@@ -94,6 +165,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     a.add_argument("--config", metavar="FILE", help="TOML file of parameter overrides")
     a.add_argument("--no-figures", action="store_true", help="skip the PNG/SVG figures")
+
+    _add_batch(sub)
 
     r = sub.add_parser(
         "reconstruct",
@@ -231,6 +304,63 @@ def _cmd_analyze(args) -> int:
     return EXIT_OK
 
 
+_MAX_LISTED_FAILURES = 10
+
+
+def _print_batch(result, *, verb: str, list_failures: bool) -> None:
+    """One summary line on stdout; failed recordings and warnings on stderr."""
+    counts, table = result.counts, result.recordings
+    cached = f" ({counts['cached']} from cache)" if counts.get("cached") else ""
+    print(
+        f"{len(table)} recordings {verb}: {counts['ok']} ok{cached}, {counts['error']} "
+        f"failed, {counts['excluded']} excluded -> {result.out_dir}"
+    )
+    failed = table.loc[table["status"] == "error", ["recording_id", "error"]]
+    if list_failures:
+        for rid, error in failed.head(_MAX_LISTED_FAILURES).itertuples(index=False):
+            print(f"beatlab: error: {rid}: {error}", file=sys.stderr)
+        if len(failed) > _MAX_LISTED_FAILURES:
+            print(
+                f"beatlab: error: ... and {len(failed) - _MAX_LISTED_FAILURES} more failed "
+                "recordings (status and error columns of recordings.csv)",
+                file=sys.stderr,
+            )
+    warned = int((table["warnings"] != "").sum()) if "warnings" in table.columns else 0
+    if warned:
+        print(
+            f"beatlab: warning: {warned} recordings have warnings (warnings column of "
+            "recordings.csv)",
+            file=sys.stderr,
+        )
+
+
+def _cmd_batch(args) -> int:
+    from beatlab.batch import analyze_batch
+
+    layout = Path(args.layout)
+    out = Path(args.out) if args.out else layout.with_name(layout.stem + "_batch")
+    result = analyze_batch(
+        layout,
+        out_dir=out,
+        config=args.config,
+        workers=args.workers,
+        threads=args.threads,
+        scheduler=args.scheduler,
+        progress=not args.no_progress and sys.stderr.isatty(),
+        metrics=args.metrics,
+    )
+    _print_batch(result, verb="analysed", list_failures=True)
+    return EXIT_FAILURE if result.counts["error"] else EXIT_OK
+
+
+def _cmd_compare(args) -> int:
+    from beatlab.batch import compare_batch
+
+    result = compare_batch(args.dir, config=args.config, metrics=args.metrics)
+    _print_batch(result, verb="compared", list_failures=False)
+    return EXIT_OK
+
+
 def _cmd_reconstruct(args) -> int:
     from beatlab.holography import reconstruct_file
     from beatlab.settings import load_settings
@@ -283,7 +413,13 @@ def _cmd_simulate(args) -> int:
     return EXIT_OK
 
 
-_COMMANDS = {"analyze": _cmd_analyze, "reconstruct": _cmd_reconstruct, "simulate": _cmd_simulate}
+_COMMANDS = {
+    "analyze": _cmd_analyze,
+    "batch": _cmd_batch,
+    "compare": _cmd_compare,
+    "reconstruct": _cmd_reconstruct,
+    "simulate": _cmd_simulate,
+}
 
 
 #: Library messages name parameters (``pass fps=HZ``); on the command line they are flags.
@@ -295,6 +431,10 @@ _FLAGS = {
     "config": "--config",
     "regions": "--regions",
     "reference": "--reference",
+    "scheduler": "--scheduler",
+    "workers": "--workers",
+    "threads": "--threads",
+    "metrics": "--metrics",
 }
 _PARAMETER = re.compile(r"\b(" + "|".join(_FLAGS) + r")=")
 
@@ -308,6 +448,11 @@ def main(argv: list[str] | None = None) -> int:
     """Run the ``beatlab`` command; return the exit code."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    from tqdm import tqdm
+
+    # no progress-monitor thread: the per-frame pass forks worker processes, and forking a
+    # process with extra threads risks a lock held at the fork
+    tqdm.monitor_interval = 0
     logging.basicConfig(
         level=logging.DEBUG if args.debug else logging.WARNING,
         format="beatlab: %(levelname)s: %(message)s",

@@ -106,7 +106,9 @@ def analyze(
     regions : path-like or ndarray (Y, X) of int, optional
         A label image of user regions (0 outside); each region is analysed on its own.
     workers : int, optional
-        Threads for frame-level work (default: number of CPUs, at most 4).
+        Parallel workers for the per-frame pass (default: number of CPUs, at most 4; forked
+        processes on Linux, threads elsewhere); 1 keeps everything in this process (what a
+        batch worker wants).
     progress : bool
         Show progress bars.
 

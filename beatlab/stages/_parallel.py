@@ -11,6 +11,7 @@ left (the drift, the patterns).
 from __future__ import annotations
 
 import multiprocessing as mp
+import sys
 from collections import deque
 from collections.abc import Iterable, Iterator
 from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
@@ -28,8 +29,9 @@ _ACTIVE = None
 
 
 def can_fork() -> bool:
-    """Whether this platform starts processes by forking (Linux, most Unix)."""
-    return "fork" in mp.get_all_start_methods()
+    """Whether worker processes may be forked here: Linux only (on macOS, forking a process
+    that has used system frameworks is unsafe; elsewhere there is no fork)."""
+    return sys.platform.startswith("linux") and "fork" in mp.get_all_start_methods()
 
 
 def _call(method: str, indices: np.ndarray, frames: np.ndarray) -> list:

@@ -1,0 +1,24 @@
+"""Many recordings: plate layouts, the batch runner and well-level tables."""
+
+from beatlab.batch._stats import STANDARD_METRICS, WELL_METRICS, batch_statistics
+from beatlab.batch.cache import ResultCache, recording_key
+from beatlab.batch.layout import Layout, read_layout, validate_layout
+from beatlab.batch.runner import BatchResult, analyze_batch, available_cores, compare_batch
+from beatlab.batch.wells import aggregate_wells, normalize_wells
+
+__all__ = [
+    "STANDARD_METRICS",
+    "WELL_METRICS",
+    "BatchResult",
+    "Layout",
+    "ResultCache",
+    "aggregate_wells",
+    "analyze_batch",
+    "available_cores",
+    "batch_statistics",
+    "compare_batch",
+    "normalize_wells",
+    "read_layout",
+    "recording_key",
+    "validate_layout",
+]
