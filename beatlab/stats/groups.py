@@ -30,6 +30,7 @@ ALTERNATIVES = ("two-sided", "less", "greater")
 # a fixed seed makes a re-run give the same table (the spread between seeds is ~1e-4).
 _DUNNETT_SEED = 20_240_917
 _MIN_N = 2
+_ZERO_RELATIVE = 1e-9
 _ALPHA_NOTE = 0.05
 
 
@@ -444,7 +445,10 @@ def _compare_metric(wells, metric, by, labels, is_control, control_label, block,
         values = tested[kept.index].to_numpy()
         if control_values.size and values.size:
             row["difference"] = values.mean() - control_values.mean()
-            row["percent_change"] = _percent(row["difference"], control_mean, row["note"])
+            scale = float(max(np.abs(values).max(), np.abs(control_values).max()))
+            row["percent_change"] = _percent(
+                row["difference"], control_mean, row["note"], scale=scale
+            )
         if len(kept) < _MIN_N or control_values.size < _MIN_N:
             row["note"].append(
                 f"too few values to test (n = {len(kept)} vs control n = {control_values.size})"
@@ -464,9 +468,13 @@ def _key_dict(by: Sequence[str], key: Hashable) -> dict[str, object]:
     return dict(zip(by, key, strict=True))
 
 
-def _percent(difference: float, control_mean: float, note: list[str]) -> float:
-    """100 x difference / control mean, or NaN with a note when the control mean is 0."""
-    if control_mean == 0:
+def _percent(difference: float, control_mean: float, note: list[str], *, scale: float) -> float:
+    """100 x difference / control mean, or NaN with a note when the control mean is 0.
+
+    "0" within rounding of the values' own ``scale``: a column already normalised to its
+    control (mean 0 up to 1e-15) has no meaningful percent change.
+    """
+    if abs(control_mean) <= _ZERO_RELATIVE * scale:
         note.append("control mean is 0: no percent change")
         return np.nan
     return 100.0 * difference / control_mean

@@ -390,3 +390,22 @@ def test_duplicate_index_labels_are_harmless():
     duplicated = stacked.set_axis([0, 1, 2] * 4)
     expected = compare_groups(wells, metrics=["beat_rate_bpm"])
     pd.testing.assert_frame_equal(compare_groups(duplicated, metrics=["beat_rate_bpm"]), expected)
+
+
+def test_percent_change_is_null_when_the_control_is_zero_up_to_rounding():
+    # a column already normalised to its vehicle: the control mean is 0 up to 1e-15, and a
+    # percent change of it would be a meaningless 1e17 (seen on a simulated plate)
+    control = np.array([0.1, -0.3, 0.2]) - np.mean([0.1, -0.3, 0.2])
+    wells = pd.DataFrame(
+        {
+            "compound": ["v"] * 3 + ["d"] * 3,
+            "concentration": [0.0] * 3 + [1.0] * 3,
+            "role": ["vehicle"] * 3 + ["sample"] * 3,
+            "rate_norm": [*control, 12.0, 13.0, 14.0],
+        }
+    )
+    out = compare_groups(wells, metrics=["rate_norm"])
+    row = out[out["concentration"] == 1.0].iloc[0]
+    assert np.isnan(row["percent_change"])
+    assert "control mean is 0" in row["note"]
+    assert row["difference"] == pytest.approx(13.0)
