@@ -2,11 +2,13 @@
 
 from beatlab.batch._stats import STANDARD_METRICS, WELL_METRICS, batch_statistics
 from beatlab.batch.cache import ResultCache, recording_key
+from beatlab.batch.flags import FLAG_RULES, quality_columns
 from beatlab.batch.layout import Layout, read_layout, validate_layout
 from beatlab.batch.runner import BatchResult, analyze_batch, available_cores, compare_batch
 from beatlab.batch.wells import aggregate_wells, normalize_wells
 
 __all__ = [
+    "FLAG_RULES",
     "STANDARD_METRICS",
     "WELL_METRICS",
     "BatchResult",
@@ -18,6 +20,7 @@ __all__ = [
     "batch_statistics",
     "compare_batch",
     "normalize_wells",
+    "quality_columns",
     "read_layout",
     "recording_key",
     "validate_layout",

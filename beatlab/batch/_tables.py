@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from beatlab.batch._layout_cells import NUMBER_COLUMNS
+from beatlab.batch.flags import QUALITY_COLUMNS
 from beatlab.batch.layout import OVERRIDE_COLUMNS
 from beatlab.errors import BeatlabWarning, InputError
 from beatlab.io.writers import atomic_path
@@ -38,8 +39,13 @@ __all__ = [
 BATCH_COLUMNS = ("status", "error", "warnings")
 """Columns the batch adds to each recording after the metrics."""
 
-ROW_DTYPES = {f.name: f.dtype for f in ROW_FIELDS}
-"""Schema type of every metric column of ``recordings.csv``."""
+ROW_DTYPES = {
+    **{f.name: f.dtype for f in ROW_FIELDS},
+    "n_beating_regions": "int",
+    "mixed": "boolean",
+    "quality_flags": "str",
+}
+"""Schema type of every metric and quality-flag column of ``recordings.csv``."""
 
 BEAT_DTYPES = {f.name: f.dtype for f in TABLES["beats"].columns}
 """Schema type of every beat column of ``beats.csv``."""
@@ -134,7 +140,7 @@ def type_table(table: pd.DataFrame, schema: Mapping[str, str]) -> pd.DataFrame:
 
 def _renamed(layout: pd.DataFrame) -> pd.DataFrame:
     """The layout with its columns that collide with batch columns renamed ``<name>_layout``."""
-    taken = (set(ROW_DTYPES) | set(BATCH_COLUMNS)) - set(_MERGED)
+    taken = (set(ROW_DTYPES) | set(QUALITY_COLUMNS) | set(BATCH_COLUMNS)) - set(_MERGED)
     clash = [name for name in layout.columns if name in taken]
     if clash:
         warnings.warn(

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 
 import pandas as pd
 
+from beatlab.batch.flags import quality_columns
 from beatlab.pipeline import analyze
 
 __all__ = [
@@ -116,8 +117,10 @@ def analyze_task(task: AnalysisTask) -> tuple[dict, pd.DataFrame]:
             )
     except Exception as exc:  # any failure of one recording must not stop the batch
         return error_row(exc), pd.DataFrame()
+    base = analysis.to_row()
     row = {
-        **analysis.to_row(),
+        **base,
+        **quality_columns(base, analysis.regions),
         "status": "ok",
         "error": "",
         "warnings": "; ".join(analysis.warnings),
