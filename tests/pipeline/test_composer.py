@@ -399,10 +399,11 @@ def test_flow_rigid_none(drifting_clusters):
     res = _override(sim, "flow", "rigid", "none")
     assert res.summary["quality"]["drift_reference"] == "none"
     rest = _resting(sim)
-    # misaligned by up to 1.6 um, resting frames differ from the template more than a beat
-    # changes the OPD (measured: 45-94 nm against a 12-16 nm beat, 0.1-20 nm with removal)
+    # misaligned by up to 0.8 um (the template sits at the middle of a 1.6 um drift),
+    # resting frames differ from the template more than a beat changes the OPD (measured: up
+    # to 32 nm against a 16 nm beat; with removal, less than half of that)
     opd_rest = np.abs(res.trace["opd_change_nm"].to_numpy()[rest])
-    assert np.nanmax(opd_rest) > 2 * base.summary["opd_change_nm"]
+    assert np.nanmax(opd_rest) > 1.5 * base.summary["opd_change_nm"]
     assert np.nanmax(opd_rest) > 2 * np.nanmax(
         np.abs(base.trace["opd_change_nm"].to_numpy()[rest])
     )
