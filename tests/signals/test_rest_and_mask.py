@@ -116,3 +116,29 @@ def test_no_rest_falls_back_and_says_so():
     # the frames taken are still the least contracted ones
     act = np.atleast_2d(sim.activation)[0]
     assert act[rest.rest].mean() < act.mean()
+
+
+def test_a_common_bias_of_the_shift_estimate_is_not_taken_for_drift(monkeypatch):
+    # seen on a 512 px, 4000-frame recording: phase correlation on coarse low-resolution
+    # frames read every frame as shifted by the same ~1.5 px; the frames' own reference has
+    # no such offset, so the rest pass must not move every frame (and compound it each
+    # iteration), which put the template 9 px off and found no rest at all
+    import beatlab.signals.rest as rest_module
+
+    true_shift = rest_module._phase_shift
+
+    def biased(ref, img, window):
+        return true_shift(ref, img, window) + np.array([1.5, -1.2])
+
+    monkeypatch.setattr(rest_module, "_phase_shift", biased)
+    sim = simulate_recording(duration_s=6, fps=20, shape_px=(96, 96), rate_bpm=60, rng=2)
+    src = OPDSource(as_recording(sim))
+    rest = estimate_rest_template(
+        src, rest_quantile=0.25, max_rest_frames=32, level_tilt=True,
+        times_s=np.asarray(sim.times_s),
+    )  # fmt: skip
+    assert rest.method == "rest-frames"
+    assert np.abs(rest.shifts_px).max() < 0.5
+    activation = np.asarray(sim.activation)
+    active = activation.reshape(activation.shape[0], -1).max(axis=1)
+    assert np.all(active[rest.rest] < 0.05)  # the resting frames are truly at rest
