@@ -10,6 +10,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Sequence
 
+import numpy as np
 import pandas as pd
 
 from beatlab.batch.wells import aggregate_wells, normalize_wells
@@ -98,8 +99,20 @@ def _groups(tested, responses, by, skipped) -> pd.DataFrame | None:
     elif not by:
         skipped["groups"] = "the layout has no condition, compound or concentration column"
     else:
-        return compare_groups(tested, metrics=responses, by=by)
+        return compare_groups(tested, metrics=responses, by=by, block=_block(tested))
     return None
+
+
+def _block(tested: pd.DataFrame) -> str | None:
+    """``"batch"`` when wells come from several differentiation batches (a ``batch`` column).
+
+    Plates need no blocking here: the ``_norm`` columns are already relative to each
+    plate's own vehicle wells.
+    """
+    if "batch" not in tested.columns:
+        return None
+    batches = tested["batch"].astype(str).replace("", np.nan).dropna().unique()
+    return "batch" if len(batches) > 1 else None
 
 
 def _dose_response(tested, responses, skipped) -> pd.DataFrame | None:
