@@ -44,6 +44,7 @@ ROW_DTYPES = {
     "n_beating_regions": "int",
     "mixed": "boolean",
     "quality_flags": "str",
+    "measured_region": "int",
 }
 """Schema type of every metric and quality-flag column of ``recordings.csv``."""
 

@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 
 import pandas as pd
 
-from beatlab.batch.flags import quality_columns
+from beatlab.batch.flags import dominant_region, quality_columns
 from beatlab.pipeline import analyze
 
 __all__ = [
@@ -52,6 +52,9 @@ class AnalysisTask:
         Keyword overrides for :func:`beatlab.analyze` from the layout row.
     config : Mapping
         The full nested configuration.
+    measure : str
+        ``"whole"`` (the whole analysed field) or ``"dominant"`` (its dominant region only:
+        :func:`beatlab.batch.flags.dominant_region`), from the layout's ``measure`` column.
     threads : int or None
         Threads for the recording's frame-level work. None: the worker's own
         ``OMP_NUM_THREADS`` (1 when unset), and OpenCV is pinned to it (Dask workers).
@@ -63,6 +66,7 @@ class AnalysisTask:
     options: Mapping = field(default_factory=dict)
     config: Mapping = field(default_factory=dict)
     threads: int | None = None
+    measure: str = "whole"
 
 
 def describe_error(exc: BaseException) -> str:
@@ -118,14 +122,17 @@ def analyze_task(task: AnalysisTask) -> tuple[dict, pd.DataFrame]:
     except Exception as exc:  # any failure of one recording must not stop the batch
         return error_row(exc), pd.DataFrame()
     base = analysis.to_row()
+    row = {**base, **quality_columns(base, analysis.regions)}
+    beats = analysis.beats
+    if task.measure == "dominant":
+        row, beats = dominant_region(row, analysis.regions, analysis.region_beats)
     row = {
-        **base,
-        **quality_columns(base, analysis.regions),
+        **row,
         "status": "ok",
         "error": "",
         "warnings": "; ".join(analysis.warnings),
     }
-    return row, analysis.beats
+    return row, beats
 
 
 def init_worker(threads: int) -> None:

@@ -12,7 +12,21 @@ from collections.abc import Mapping
 
 import pandas as pd
 
-__all__ = ["FLAG_RULES", "QUALITY_COLUMNS", "quality_columns"]
+__all__ = [
+    "FLAG_RULES",
+    "MEASURE_CHOICES",
+    "QUALITY_COLUMNS",
+    "dominant_region",
+    "quality_columns",
+]
+
+#: Values of the layout's ``measure`` column: the whole analysed field (default) or only its
+#: dominant region (the largest region that beats).
+MEASURE_CHOICES = ("whole", "dominant")
+
+# regions.csv columns that stand for a recording-level column of another name
+_REGION_AS_ROW = {"snr": "quality_snr", "trace_noise_um": "quality_trace_noise_um",
+                  "pattern_snr": "quality_pattern_snr"}  # fmt: skip
 
 #: Thresholds of the flags (documented in docs/batch.md).
 FLAG_RULES = {
@@ -28,7 +42,7 @@ _MIN_SNR = 10.0
 _MAX_DRIFT_UM = 2.0
 _MIN_MASKED = 0.02
 
-QUALITY_COLUMNS = ("n_beating_regions", "mixed", "quality_flags")
+QUALITY_COLUMNS = ("n_beating_regions", "mixed", "quality_flags", "measured_region")
 """Columns :func:`quality_columns` adds to a recording's row."""
 
 
@@ -80,4 +94,35 @@ def quality_columns(row: Mapping, regions: pd.DataFrame) -> dict:
         "n_beating_regions": beating,
         "mixed": beating >= 2,
         "quality_flags": "; ".join(flags),
+        "measured_region": 0,
     }
+
+
+def dominant_region(
+    row: Mapping, regions: pd.DataFrame, region_beats: pd.DataFrame
+) -> tuple[dict, pd.DataFrame]:
+    """The recording's row and beats measured on its dominant region only.
+
+    The dominant region is the largest (``area_um2``) of the regions with 2 beats or more,
+    else the largest region. Every column of ``regions.csv`` replaces the recording-level
+    column of the same meaning; ``measured_region`` names the region (0: the whole field, when
+    there is no region).
+
+    Returns
+    -------
+    (dict, pandas.DataFrame)
+        The row and the region's beats (without the ``region`` column).
+    """
+    out = dict(row)
+    if not len(regions):
+        return out | {"measured_region": 0}, region_beats.iloc[:0]
+    beating = regions[pd.to_numeric(regions["beat_count"], errors="coerce") >= 2]
+    pool = beating if len(beating) else regions
+    chosen = pool.loc[pd.to_numeric(pool["area_um2"], errors="coerce").idxmax()]
+    for name, value in chosen.items():
+        target = _REGION_AS_ROW.get(name, name)
+        if target in out:
+            out[target] = value.item() if hasattr(value, "item") else value
+    number = int(chosen["region"])
+    beats = region_beats[region_beats["region"] == number].drop(columns="region")
+    return out | {"measured_region": number}, beats.reset_index(drop=True)

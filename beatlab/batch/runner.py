@@ -42,6 +42,7 @@ from beatlab.batch._worker import (
     pinned_environment,
 )
 from beatlab.batch.cache import ResultCache, decode_frame, encode_frame, recording_key
+from beatlab.batch.flags import MEASURE_CHOICES
 from beatlab.batch.layout import Layout, read_layout
 from beatlab.errors import InputError
 from beatlab.io.writers import write_json
@@ -140,13 +141,13 @@ def _check_count(value, name: str) -> int | None:
 
 
 def _as_layout(layout) -> Layout:
-    if isinstance(layout, Layout):
-        return layout
-    if not isinstance(layout, str | os.PathLike):
+    if not isinstance(layout, Layout | str | os.PathLike):
         raise InputError(
             f"layout must be a Layout or the path of a layout CSV, got {type(layout).__name__}"
         )
-    return read_layout(layout)
+    result = layout if isinstance(layout, Layout) else read_layout(layout)
+    _check_measure(result)
+    return result
 
 
 def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
@@ -157,7 +158,9 @@ def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
             plan.outcomes[index] = (dict(_EXCLUDED_ROW), pd.DataFrame())
             continue
         options = layout.options_for(row)
-        key = recording_key(row["path"], options=options, config=config)
+        measure = _measure(row)
+        key_options = options if measure == "whole" else {**options, "measure": measure}
+        key = recording_key(row["path"], options=key_options, config=config)
         found = cache.load(key)
         if found is not None:
             plan.outcomes[index] = found
@@ -171,9 +174,31 @@ def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
                 path=str(row["path"]),
                 options=options,
                 config=config,
+                measure=measure,
             )
         )
     return plan
+
+
+def _measure(row) -> str:
+    """The layout row's ``measure`` (blank: ``whole``)."""
+    value = row.get("measure")
+    text = "" if value is None or (isinstance(value, float) and value != value) else str(value)
+    return text.strip().lower() or "whole"
+
+
+def _check_measure(layout: Layout) -> None:
+    """Every ``measure`` cell is one of :data:`MEASURE_CHOICES` (all problems at once)."""
+    if "measure" not in layout.table.columns:
+        return
+    bad = [
+        f"row {row['layout_row']}, column measure: {row['measure']!r} is not one of "
+        f"{', '.join(MEASURE_CHOICES)}; leave it blank for the whole field"
+        for row in layout.table.to_dict("records")
+        if _measure(row) not in MEASURE_CHOICES
+    ]
+    if bad:
+        raise InputError("the layout has problems:\n" + "\n".join(bad))
 
 
 def _outcome(future) -> tuple[dict, pd.DataFrame]:
