@@ -20,7 +20,7 @@ def two_clusters(tmp_path_factory):
 
 
 def test_dominant_region_is_measured_on_its_own(two_clusters):
-    folder, sim = two_clusters
+    folder, _ = two_clusters
     (folder / "layout.csv").write_text(
         "path,well,measure\ntwo.ome.tif,A1,\ntwo.ome.tif,A2,dominant\n"
     )
