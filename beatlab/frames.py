@@ -159,11 +159,22 @@ class OPDSource:
     def bin_labels(self, labels: np.ndarray) -> np.ndarray:
         """A label image (0 outside, 1..n inside) of the unbinned frames on the binned grid.
 
-        Each binned pixel takes the label of the pixel at its block's centre.
+        Each binned pixel takes the label of the pixel at its block's centre; a label image
+        already of the binned shape is returned as it is.
+
+        Raises
+        ------
+        InputError
+            The image has neither shape.
         """
         labels = np.asarray(labels)
-        if self.bin <= 1 or labels.shape == tuple(self.shape):
+        if labels.shape == tuple(self.shape):
             return labels
+        if labels.shape != tuple(self.unbinned_shape):
+            raise InputError(
+                f"regions: label image shape {labels.shape} differs from the analysed frames "
+                f"{tuple(self.unbinned_shape)}; give a label image of the same size"
+            )
         c = self.bin // 2
         ny, nx = self.shape
         return labels[c :: self.bin, c :: self.bin][:ny, :nx]

@@ -57,7 +57,7 @@ def run_measured(cmd: list[str]) -> tuple[float, float, str]:
     return seconds, peak, out
 
 
-def accuracy(found: pd.DataFrame, truth: pd.DataFrame, fps: float) -> dict:
+def accuracy(found: pd.DataFrame, truth: pd.DataFrame) -> dict:
     """Beat count, rate and median |errors| of the found beats matched to the true ones."""
     out = {"beats": len(found), "true_beats": len(truth)}
     peaks = np.sort(found["peak_s"].to_numpy()) if len(found) else np.zeros(0)
@@ -89,12 +89,8 @@ def simulate(tmp: Path, *, size: int, frames: int, fps: float, seed: int) -> Pat
 
 
 def one_length(tmp: Path, path: Path, *, fps: float, pixel_um: float, runs: int) -> dict:
-    truth = pd.DataFrame(
-        json.loads(path.with_name(path.name[:-8] + ".truth.json").read_text())["beats"]
-    )
-    n_frames = round(
-        json.loads(path.with_name(path.name[:-8] + ".truth.json").read_text())["n_frames"]
-    )
+    record = json.loads(path.with_name(path.name[:-8] + ".truth.json").read_text())
+    truth, n_frames = pd.DataFrame(record["beats"]), round(record["n_frames"])
     results: dict[str, list] = {"beatlab": [], "plain": []}
     for run in range(runs):
         order = ("beatlab", "plain") if run % 2 == 0 else ("plain", "beatlab")
@@ -117,7 +113,7 @@ def one_length(tmp: Path, path: Path, *, fps: float, pixel_um: float, runs: int)
                        str(pixel_um)]  # fmt: skip
                 seconds, peak, stdout = run_measured(cmd)
                 found = pd.DataFrame(json.loads(stdout.strip().splitlines()[-1])["beats"])
-            results[name].append((seconds, peak, accuracy(found, truth, fps)))
+            results[name].append((seconds, peak, accuracy(found, truth)))
     summary = {"frames": n_frames}
     for name, rows in results.items():
         summary[name] = {

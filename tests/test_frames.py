@@ -93,6 +93,9 @@ def test_binned_frames_are_block_means_on_a_coarser_grid():
     binned = src.bin_labels(labels)
     assert binned.shape == (16, 17)
     assert set(np.unique(binned)) == {0, 3} and (binned == 3).sum() == 5 * 4
+    assert src.bin_labels(binned).shape == (16, 17)  # already binned: as it is
+    with pytest.raises(InputError, match="label image shape"):
+        src.bin_labels(np.zeros((40, 40), int))  # neither shape: refused, not sliced
     assert OPDSource(_rec(opd, "opd"), bin=1).shape == (33, 34)
     with pytest.raises(InputError, match="bin 8 leaves only"):
         OPDSource(_rec(opd, "opd"), bin=8)

@@ -19,6 +19,9 @@ ROLES = ("vehicle", "positive", "negative", "sample")
 KINDS = ("opd", "phase", "hologram")
 """Values of the ``kind`` column (what the pixel values are); blank means the file decides."""
 
+MEASURES = ("whole", "dominant")
+"""Values of ``measure``: the whole analysed field (default) or only its dominant region."""
+
 MOLAR_EXPONENTS = {"pM": -12, "nM": -9, "uM": -6, "mM": -3, "M": 0}
 """Convertible concentration units -> power of ten of mol/L."""
 
@@ -44,6 +47,7 @@ TEXT_COLUMNS = (
     "timepoint",
     "role",
     "kind",
+    "measure",
     "exclude_reason",
 )
 """Layout columns read as text (stripped of surrounding spaces)."""

@@ -14,15 +14,10 @@ import pandas as pd
 
 __all__ = [
     "FLAG_RULES",
-    "MEASURE_CHOICES",
     "QUALITY_COLUMNS",
     "dominant_region",
     "quality_columns",
 ]
-
-#: Values of the layout's ``measure`` column: the whole analysed field (default) or only its
-#: dominant region (the largest region that beats).
-MEASURE_CHOICES = ("whole", "dominant")
 
 # regions.csv columns that stand for a recording-level column of another name
 _REGION_AS_ROW = {"snr": "quality_snr", "trace_noise_um": "quality_trace_noise_um",

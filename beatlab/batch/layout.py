@@ -23,6 +23,7 @@ import pandas as pd
 from beatlab.batch._layout_cells import (
     KINDS,
     KNOWN_COLUMNS,
+    MEASURES,
     NUMBER_COLUMNS,
     PATH_COLUMNS,
     ROLES,
@@ -38,6 +39,7 @@ from beatlab.errors import InputError
 __all__ = [
     "KINDS",
     "KNOWN_COLUMNS",
+    "MEASURES",
     "OVERRIDE_COLUMNS",
     "ROLES",
     "Layout",
@@ -289,6 +291,11 @@ def _parse_cells(text: pd.DataFrame, problems: Problems) -> pd.DataFrame:
         out["kind"] = parse_choice(
             out["kind"], rows, column="kind", choices=KINDS, default="", problems=problems
         )
+    if "measure" in out.columns:
+        out["measure"] = parse_choice(
+            out["measure"], rows, column="measure", choices=MEASURES, default="whole",
+            problems=problems,
+        )  # fmt: skip
     out["exclude"] = parse_exclude(out["exclude"], rows, problems=problems)
     if "concentration" in out.columns:
         if "unit" not in out.columns:

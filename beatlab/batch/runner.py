@@ -42,7 +42,6 @@ from beatlab.batch._worker import (
     pinned_environment,
 )
 from beatlab.batch.cache import ResultCache, decode_frame, encode_frame, recording_key
-from beatlab.batch.flags import MEASURE_CHOICES
 from beatlab.batch.layout import Layout, read_layout
 from beatlab.errors import InputError
 from beatlab.io.writers import write_json
@@ -145,9 +144,7 @@ def _as_layout(layout) -> Layout:
         raise InputError(
             f"layout must be a Layout or the path of a layout CSV, got {type(layout).__name__}"
         )
-    result = layout if isinstance(layout, Layout) else read_layout(layout)
-    _check_measure(result)
-    return result
+    return layout if isinstance(layout, Layout) else read_layout(layout)
 
 
 def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
@@ -181,24 +178,8 @@ def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
 
 
 def _measure(row) -> str:
-    """The layout row's ``measure`` (blank: ``whole``)."""
-    value = row.get("measure")
-    text = "" if value is None or (isinstance(value, float) and value != value) else str(value)
-    return text.strip().lower() or "whole"
-
-
-def _check_measure(layout: Layout) -> None:
-    """Every ``measure`` cell is one of :data:`MEASURE_CHOICES` (all problems at once)."""
-    if "measure" not in layout.table.columns:
-        return
-    bad = [
-        f"row {row['layout_row']}, column measure: {row['measure']!r} is not one of "
-        f"{', '.join(MEASURE_CHOICES)}; leave it blank for the whole field"
-        for row in layout.table.to_dict("records")
-        if _measure(row) not in MEASURE_CHOICES
-    ]
-    if bad:
-        raise InputError("the layout has problems:\n" + "\n".join(bad))
+    """The layout row's ``measure`` (validated by the layout; absent: ``whole``)."""
+    return row.get("measure") or "whole"
 
 
 def _outcome(future) -> tuple[dict, pd.DataFrame]:

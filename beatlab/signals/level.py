@@ -7,15 +7,37 @@ import numpy as np
 __all__ = ["PlaneLeveller"]
 
 
-def _weighted_solve(a: np.ndarray, d: np.ndarray, w: np.ndarray | None) -> np.ndarray:
-    """Weighted least squares of ``a @ c = d`` through the (tiny) normal equations."""
-    aw = a if w is None else a * w[:, None]
-    normal = aw.T @ a
+def _solve_each(normal: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve each ``normal[t] @ c = rhs[t]`` (T, k, k) and (T, k); minimum norm if singular."""
     try:
-        return np.linalg.solve(normal, aw.T @ d)
-    except np.linalg.LinAlgError:  # degenerate pixel set (e.g. one row): fall back to SVD
-        sw = np.ones_like(d) if w is None else np.sqrt(w)
-        return np.linalg.lstsq(a * sw[:, None], d * sw, rcond=None)[0]
+        return np.linalg.solve(normal, rhs[..., None])[..., 0]
+    except np.linalg.LinAlgError:  # a degenerate pixel set or weighting
+        pairs = zip(normal, rhs, strict=True)
+        return np.stack([np.linalg.lstsq(n, r, rcond=None)[0] for n, r in pairs])
+
+
+def _tukey_irls(a: np.ndarray, d: np.ndarray) -> np.ndarray:
+    """Robust fit of each row of ``d`` (T, P) on the design ``a`` (P, k): coefficients (T, k).
+
+    Ordinary least squares, then three Tukey-biweight reweightings (tuning 4.685 robust SDs).
+    The scale is the MAD of the start's residuals (it ignores the moving cells already;
+    re-estimating it at every step changes little and costs two medians each time).
+    """
+    coef = _solve_each(np.broadcast_to(a.T @ a, (d.shape[0], a.shape[1], a.shape[1])), d @ a)
+    r = d - coef @ a.T
+    scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
+    robust = scale > 0
+    for step in range(3):
+        if not robust.any():
+            break
+        if step:
+            r = d - coef @ a.T
+        u = r[robust] / (4.685 * scale[robust, None])
+        w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
+        weighted = (w[:, :, None] * a).transpose(0, 2, 1)  # (T, k, P)
+        rhs = np.matmul(weighted, d[robust][:, :, None])[:, :, 0]
+        coef[robust] = _solve_each(np.matmul(weighted, a), rhs)
+    return coef
 
 
 class PlaneLeveller:
@@ -78,23 +100,9 @@ class PlaneLeveller:
         diff = (np.asarray(frame, dtype=np.float32) - self.template).ravel()[self._idx]
         good = np.isfinite(diff)
         a = self._design[good]
-        d = diff[good].astype(np.float64)
-        if d.size < a.shape[1]:
+        if good.sum() < a.shape[1]:
             return np.zeros(a.shape[1])
-        coef = _weighted_solve(a, d, None)
-        r = d - a @ coef
-        # the scale from the start's residuals (the MAD ignores the moving cells already);
-        # re-estimating it at every step changes little and costs two medians each time
-        s = 1.4826 * np.median(np.abs(r - np.median(r)))
-        for step in range(3):
-            if not s > 0:
-                break
-            if step:
-                r = d - a @ coef
-            u = r / (4.685 * s)
-            w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
-            coef = _weighted_solve(a, d, w)
-        return coef
+        return _tukey_irls(a, diff[good].astype(np.float64)[None])[0]
 
     def fit_stack(self, frames: np.ndarray) -> np.ndarray:
         """:meth:`fit` of every frame of a stack (T, Y, X) at once, coefficients (T, k).
@@ -104,30 +112,10 @@ class PlaneLeveller:
         """
         stack = np.asarray(frames, dtype=np.float32)
         n = stack.shape[0]
-        diff = (stack.reshape(n, -1)[:, self._idx] - self.template.ravel()[self._idx]).astype(
-            np.float64
-        )
-        a = self._design
-        if not np.isfinite(diff).all() or diff.shape[1] < a.shape[1]:
+        diff = stack.reshape(n, -1)[:, self._idx] - self.template.ravel()[self._idx]
+        if not np.isfinite(diff).all() or diff.shape[1] < self._design.shape[1]:
             return np.stack([self.fit(frame) for frame in stack]) if n else np.zeros((0, 0))
-        coef = np.linalg.lstsq(a, diff.T, rcond=None)[0].T
-        r = diff - coef @ a.T
-        scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
-        robust = scale > 0
-        for step in range(3):
-            if not robust.any():
-                break
-            if step:
-                r = diff - coef @ a.T
-            u = r[robust] / (4.685 * scale[robust, None])
-            w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
-            normal = np.einsum("tp,pi,pj->tij", w, a, a)
-            rhs = np.einsum("tp,pi->ti", w * diff[robust], a)
-            try:
-                coef[robust] = np.linalg.solve(normal, rhs[..., None])[..., 0]
-            except np.linalg.LinAlgError:  # a degenerate weighting: frame by frame
-                return np.stack([self.fit(frame) for frame in stack])
-        return coef
+        return _tukey_irls(self._design, diff.astype(np.float64))
 
     def _plane(self, coef: np.ndarray) -> np.ndarray | np.float32:
         plane = np.float32(coef[0])

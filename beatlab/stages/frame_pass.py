@@ -373,13 +373,13 @@ class _FrameWork:
     ``patterns`` are filled in by the rounds before the ones that use them.
     """
 
-    def __init__(self, reducer, cells, mask, *, frame_ref, template_k):
+    def __init__(self, reducer, cells, mask, *, frame_ref, template_k, pattern_frames):
         self.reducer = reducer
         self.cells = cells
         self.mask = mask
         self.frame_ref = frame_ref
         self.template_k = template_k
-        self.pattern_frames: set = set()
+        self.pattern_frames = pattern_frames
         self.drift_px: np.ndarray | None = None
         self.patterns = None
 
@@ -489,12 +489,17 @@ def measure_frames(
     n_tiles = int(tiles.max()) + 1
     cells = _cell_index(reference, tiles, n_tiles)
     accumulator = PatternAccumulator(cells, weight_family="labels")
+    pattern_idx, pattern_w = pattern_weights(
+        rest, reference.labels, n_labels=cells.families["labels"].shape[1]
+    )
+    weight_of = dict(zip(pattern_idx.tolist(), pattern_w, strict=True))
     work = _FrameWork(
         _FrameReducer(reference, settings, px_um),
         cells,
         reference.mask,
         frame_ref=np.maximum(rest.segment_of(times_s), 0),
         template_k=_template_membership(rest, n),
+        pattern_frames=set(weight_of),
     )
     shifts = np.zeros((n, 2))
     clipped = np.zeros(n)
@@ -513,11 +518,6 @@ def measure_frames(
     )
     if interpolate:
         drift_reference = "cell median at rest frames, interpolated"
-    pattern_idx, pattern_w = pattern_weights(
-        rest, reference.labels, n_labels=cells.families["labels"].shape[1]
-    )
-    weight_of = dict(zip(pattern_idx.tolist(), pattern_w, strict=True))
-    work.pattern_frames = set(weight_of)
 
     rounds = [(pattern_idx, "pattern"), (np.arange(n), "project")]
     if interpolate:

@@ -216,15 +216,9 @@ def prepare_reference(
             '[mask] method = "all" in a config file'
         )
     if regions is not None:
-        shape = getattr(source, "unbinned_shape", source.shape)
-        labels = regions if isinstance(regions, np.ndarray) else load_label_image(regions, shape)
-        if labels.shape == tuple(shape) and hasattr(source, "bin_labels"):
-            labels = source.bin_labels(labels)
-        if labels.shape != tuple(source.shape):
-            raise InputError(
-                f"regions: label image shape {labels.shape} differs from the analysed frames "
-                f"{tuple(shape)}; give a label image of the same size"
-            )
+        if not isinstance(regions, np.ndarray):
+            regions = load_label_image(regions, source.unbinned_shape)
+        labels = source.bin_labels(regions)
         labels = np.where(np.isfinite(template), labels, 0).astype(np.int64)
     else:
         labels = _region_labels(rest, cells, times_s, settings, px_um)
