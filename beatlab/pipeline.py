@@ -61,6 +61,28 @@ def _messages(caught: list[warnings.WarningMessage]) -> list[str]:
     ]
 
 
+def _warn_if_mixed(regions: pd.DataFrame) -> None:
+    """Warn when two or more regions beat on their own: whole-field numbers mix them."""
+    from beatlab.results import beating_regions
+
+    beating = beating_regions(regions)
+    if len(beating) < 2:
+        return
+    rates = ", ".join(
+        f"region {int(r.region)} at {r.beat_rate_bpm:.1f} bpm"
+        if np.isfinite(r.beat_rate_bpm)
+        else f"region {int(r.region)}"
+        for r in beating.sort_values("region").itertuples()
+    )
+    warnings.warn(
+        BeatlabWarning(
+            f"{len(beating)} regions beat on their own ({rates}): the whole-field beats and "
+            "rhythm mix them; use each region's numbers (regions.csv, region_beats.csv)"
+        ),
+        stacklevel=3,
+    )
+
+
 @contextlib.contextmanager
 def _recorded_warnings() -> Iterator[list[warnings.WarningMessage]]:
     """Record every warning raised inside, then raise each distinct one again on the way out.
@@ -153,6 +175,7 @@ def analyze(
             frames, ref, times_s=times, pixel_size_um=float(source.pixel_size_um),
             settings=settings, start_s=start_s, end_s=end_s,
         )  # fmt: skip
+        _warn_if_mixed(found.table)
         summary = summarize(
             whole, frames, ref, maps=maps, n_regions=len(found.table), recording=rec,
             source=source, settings=settings, warnings=_messages(caught),

@@ -19,7 +19,34 @@ import pandas as pd
 from beatlab.errors import InputError
 from beatlab.schema import ROW_FIELDS, TABLES
 
-__all__ = ["Analysis", "read_analysis"]
+__all__ = ["Analysis", "beating_regions", "read_analysis"]
+
+#: A region beats on its own when its trace has at least this many beats.
+MIN_REGION_BEATS = 2
+
+
+def beating_regions(regions: pd.DataFrame) -> pd.DataFrame:
+    """The rows of a regions table whose region beats (at least 2 beats), largest first.
+
+    Parameters
+    ----------
+    regions : pandas.DataFrame
+        ``regions.csv`` (columns ``region``, ``area_um2``, ``beat_count``, ...).
+
+    Returns
+    -------
+    pandas.DataFrame
+        The beating regions, by decreasing area.
+    """
+    if not len(regions) or "beat_count" not in regions:
+        return regions.iloc[:0]
+    count = pd.to_numeric(regions["beat_count"], errors="coerce")
+    beating = regions[count >= MIN_REGION_BEATS]
+    return beating.sort_values("area_um2", ascending=False, kind="stable")
+
+
+def _rate_text(rate) -> str:
+    return "n/a" if rate is None or not np.isfinite(float(rate)) else f"{float(rate):.1f} bpm"
 
 #: Arrays of ``maps.npz`` that are not maps.
 _IMAGES = {"mask": "mask", "template_nm": "template", "region_labels": "region_labels"}
@@ -89,6 +116,24 @@ class Analysis:
         from beatlab.output import save_analysis
 
         return save_analysis(self, out_dir, figures=figures)
+
+    def headline(self) -> str:
+        """One line for people: beats, rate and rhythm, or each region's when several beat.
+
+        When two or more regions beat on their own the whole-field numbers mix their
+        rhythms, so the line gives each region's beats, rate and rhythm instead.
+        """
+        beating = beating_regions(self.regions)
+        if len(beating) >= 2:
+            parts = [
+                f"region {int(r.region)}: {int(r.beat_count)} beats, "
+                f"{_rate_text(r.beat_rate_bpm)}, rhythm {r.rhythm}"
+                for r in beating.sort_values("region").itertuples()
+            ]
+            return f"{len(beating)} regions beat on their own ({'; '.join(parts)})"
+        s = self.summary
+        rate = _rate_text(s.get("beat_rate_bpm"))
+        return f"{s['beat_count']} beats, {rate}, rhythm {s['rhythm']}"
 
     def to_row(self) -> dict:
         """One flat row of recording-level metrics, keyed by ``beatlab.schema.ROW_FIELDS``.

@@ -307,8 +307,10 @@ TRACE_SUMMARY_FIELDS = (
        "Signal-to-noise ratio of the trace: median displacement_um of the beats / "
        "trace_noise_um; null without beats or with zero noise."),
     _f("trace_noise_um", "um", "float",
-       "Robust white-noise SD of the displacement trace: 1.4826 x median absolute deviation of "
-       "its frame-to-frame differences / sqrt 2."),
+       "Robust white-noise SD of the displacement trace: the smaller of 1.4826 x the median "
+       "absolute deviation of its frame-to-frame differences / sqrt 2 and the spread of its "
+       "lowest fifth, (q20 - q02) / (z(0.20) - z(0.02)) (the resting floor); each can only be "
+       "inflated by the beats (the first when fast beats fill most frame-to-frame changes)."),
     _f("pattern_snr", "1", "float",
        "Mean of the displacement trace over the frames that built the contraction pattern / "
        "trace_noise_um; beats are looked for only when it is at least 3 (below, the pattern is "
@@ -511,11 +513,31 @@ FILES = (
     ("region_beats.csv", "One row per beat of each region."),
     ("region_traces.csv", "One row per frame and region: the region's traces."),
     ("maps.npz", "Tile maps, the analysis mask, the rest template and the region labels."),
-    ("trace.png", "Figure: the displacement trace with onset, peak and end of every beat."),
+    ("trace.png", "Figure: the displacement trace with onset, peak and end of every beat, "
+                  "above the OPD-change and velocity traces; irregular and EAD-like beats "
+                  "shaded."),
     ("trace.svg", "The same figure as vector graphics."),
-    ("maps.png", "Figure: rest template, peak-displacement map and onset-delay map."),
+    ("trace_plotted.csv", "Every point drawn in trace.png, one row each: panel, series, item, "
+                          "x, y, value and their units (x_unit, y_unit, value_unit)."),
+    ("average_beat.png", "Figure: the average beat (mean +- SD, aligned at onset) with the "
+                         "median time to peak, RT50 and RT90."),
+    ("average_beat.svg", "The same figure as vector graphics."),
+    ("average_beat_plotted.csv", "Every point drawn in average_beat.png (columns as "
+                                 "trace_plotted.csv)."),
+    ("poincare.png", "Figure: Poincare plot of successive inter-beat intervals with SD1 and "
+                     "SD2."),
+    ("poincare.svg", "The same figure as vector graphics."),
+    ("poincare_plotted.csv", "Every point drawn in poincare.png (columns as trace_plotted.csv)."),
+    ("maps.png", "Figure: rest template, peak-displacement map and onset-delay map (drawn "
+                 "only where propagation is resolved)."),
     ("maps.svg", "The same figure as vector graphics."),
-)
+    ("maps_plotted.csv", "The tile values drawn in maps.png (columns as trace_plotted.csv); the "
+                         "template and mask are those of maps.npz."),
+    ("regions.png", "Figure: the numbered region map and each region's displacement trace."),
+    ("regions.svg", "The same figure as vector graphics."),
+    ("regions_plotted.csv", "Every point drawn in regions.png (columns as trace_plotted.csv); "
+                            "the label map is region_labels of maps.npz."),
+)  # fmt: skip
 """(file name, content) for every file ``analyze`` writes; figures not with --no-figures."""
 
 _ROW_METADATA = ("source", "kind", "fps", "frames", "duration_s", "pixel_size_um")

@@ -18,7 +18,8 @@ def result():
         duration_s=6, fps=20, shape_px=(112, 112), n_clusters=2,
         cluster_rates_bpm=[50, 80], rng=4,
     )  # fmt: skip
-    return beatlab.analyze(as_recording(sim))
+    with pytest.warns(BeatlabWarning, match="2 regions beat on their own"):
+        return beatlab.analyze(as_recording(sim))
 
 
 def test_outputs_follow_the_schema(result):
@@ -80,3 +81,31 @@ def test_warnings_are_results_and_still_raised():
     # each distinct warning is raised once, however often it occurred
     messages = [str(w.message) for w in record]
     assert len(messages) == len(set(messages))
+
+
+def test_independent_regions_are_named_in_the_headline_and_a_warning(result):
+    # the fixture's two clusters beat at 50 and 80 bpm on their own: one whole-field rhythm
+    # would mix them, so the headline gives each region's rate and the analysis warns
+    line = result.headline()
+    assert line.startswith("2 regions beat on their own (region 1: ")
+    rates = sorted(float(x.split(" bpm")[0]) for x in line.split("beats, ")[1:])
+    assert rates == pytest.approx([50, 80], abs=2)
+    assert any("2 regions beat on their own" in w for w in result.warnings)
+    beating = beatlab.results.beating_regions(result.regions)
+    assert list(beating["area_um2"]) == sorted(result.regions["area_um2"], reverse=True)
+
+
+def test_headline_of_one_rhythm_and_of_regions_that_do_not_beat():
+    regions = pd.DataFrame(
+        {"region": [1, 2], "area_um2": [50.0, 400.0], "beat_count": [1, 0],
+         "beat_rate_bpm": [np.nan, np.nan], "rhythm": ["undetermined", "quiescent"]}
+    )  # fmt: skip
+    assert beatlab.results.beating_regions(regions).empty
+    summary = {"beat_count": 0, "beat_rate_bpm": None, "rhythm": "quiescent"}
+    analysis = beatlab.Analysis(
+        trace=pd.DataFrame(), beats=pd.DataFrame(), summary=summary,
+        average_beat=pd.DataFrame(), maps={}, regions=regions, region_beats=pd.DataFrame(),
+        region_traces=pd.DataFrame(), mask=np.zeros((2, 2), bool), template=np.zeros((2, 2)),
+        region_labels=np.zeros((2, 2), int),
+    )  # fmt: skip
+    assert analysis.headline() == "0 beats, n/a, rhythm quiescent"

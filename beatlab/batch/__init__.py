@@ -4,7 +4,13 @@ from beatlab.batch._stats import STANDARD_METRICS, WELL_METRICS, batch_statistic
 from beatlab.batch.cache import ResultCache, recording_key
 from beatlab.batch.flags import FLAG_RULES, quality_columns
 from beatlab.batch.layout import Layout, read_layout, validate_layout
-from beatlab.batch.runner import BatchResult, analyze_batch, available_cores, compare_batch
+from beatlab.batch.runner import (
+    BatchResult,
+    analyze_batch,
+    available_cores,
+    compare_batch,
+    illustrate,
+)
 from beatlab.batch.wells import aggregate_wells, normalize_wells
 
 __all__ = [
@@ -19,6 +25,7 @@ __all__ = [
     "available_cores",
     "batch_statistics",
     "compare_batch",
+    "illustrate",
     "normalize_wells",
     "quality_columns",
     "read_layout",

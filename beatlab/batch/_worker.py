@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 import pandas as pd
 
 from beatlab.batch.flags import dominant_region, quality_columns
+from beatlab.io.folders import atomic_folder
 from beatlab.pipeline import analyze
 
 __all__ = [
@@ -27,6 +28,7 @@ __all__ = [
     "error_row",
     "init_worker",
     "pinned_environment",
+    "save_details",
     "thread_settings",
 ]
 
@@ -55,6 +57,11 @@ class AnalysisTask:
     measure : str
         ``"whole"`` (the whole analysed field) or ``"dominant"`` (its dominant region only:
         :func:`beatlab.batch.flags.dominant_region`), from the layout's ``measure`` column.
+    save_dir : str or None
+        Write the recording's full analysis (the files of ``beatlab analyze --out``) into this
+        folder, replaced whole or not at all; None: only the row and beats are returned.
+    figures : bool
+        Draw the recording's figures into `save_dir`.
     threads : int or None
         Threads for the recording's frame-level work. None: the worker's own
         ``OMP_NUM_THREADS`` (1 when unset), and OpenCV is pinned to it (Dask workers).
@@ -67,6 +74,8 @@ class AnalysisTask:
     config: Mapping = field(default_factory=dict)
     threads: int | None = None
     measure: str = "whole"
+    save_dir: str | None = None
+    figures: bool = True
 
 
 def describe_error(exc: BaseException) -> str:
@@ -126,13 +135,40 @@ def analyze_task(task: AnalysisTask) -> tuple[dict, pd.DataFrame]:
     beats = analysis.beats
     if task.measure == "dominant":
         row, beats = dominant_region(row, analysis.regions, analysis.region_beats)
+    notes = list(analysis.warnings)
+    if task.save_dir is not None:
+        try:
+            save_details(analysis, task.save_dir, figures=task.figures)
+        except Exception as exc:  # the numbers stand; the folder goes without figures
+            notes.append(f"recording figures not drawn: {describe_error(exc)}")
+            try:
+                save_details(analysis, task.save_dir, figures=False)
+            except Exception as again:
+                notes.append(f"recording folder not written: {describe_error(again)}")
     row = {
         **row,
         "status": "ok",
         "error": "",
-        "warnings": "; ".join(analysis.warnings),
+        "warnings": "; ".join(notes),
     }
     return row, beats
+
+
+def save_details(analysis, folder: str | os.PathLike, *, figures: bool = True) -> None:
+    """Write one recording's analysis folder (tables, maps, figures, report) atomically.
+
+    Parameters
+    ----------
+    analysis : Analysis
+        The recording's result.
+    folder : path-like
+        Its folder; an earlier one is replaced only once the new one is complete.
+    figures : bool
+        Draw the figures (PNG only, to keep a plate's folders small) and the one-recording
+        report.
+    """
+    with atomic_folder(folder) as tmp:
+        analysis.save(tmp, figures=figures)
 
 
 def init_worker(threads: int) -> None:

@@ -37,6 +37,7 @@ from beatlab.batch._tables import (
 from beatlab.batch._worker import (
     AnalysisTask,
     analyze_task,
+    describe_error,
     error_row,
     init_worker,
     pinned_environment,
@@ -44,11 +45,12 @@ from beatlab.batch._worker import (
 from beatlab.batch.cache import ResultCache, decode_frame, encode_frame, recording_key
 from beatlab.batch.layout import Layout, read_layout
 from beatlab.errors import InputError
+from beatlab.io.folders import child_folder
 from beatlab.io.writers import write_json
 from beatlab.output import CAUTION
 from beatlab.settings import load_settings
 
-__all__ = ["BatchResult", "analyze_batch", "available_cores", "compare_batch"]
+__all__ = ["BatchResult", "analyze_batch", "available_cores", "compare_batch", "illustrate"]
 
 logger = logging.getLogger(__name__)
 
@@ -147,8 +149,14 @@ def _as_layout(layout) -> Layout:
     return layout if isinstance(layout, Layout) else read_layout(layout)
 
 
-def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
-    """Excluded rows, rows found in the cache, and a task for each of the others."""
+def _plan(
+    layout: Layout, cache: ResultCache, config: dict, *, details: Path | None, figures: bool
+) -> _Plan:
+    """Excluded rows, rows found in the cache, and a task for each of the others.
+
+    With `details` (the folder of the per-recording folders), a cached row whose folder is
+    missing is analysed again, so that every ok recording has its folder.
+    """
     plan = _Plan(outcomes=[None] * len(layout.table), tasks=[], keys={}, cached=0)
     for index, row in enumerate(layout.table.to_dict("records")):
         if bool(row["exclude"]):
@@ -158,8 +166,9 @@ def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
         measure = _measure(row)
         key_options = options if measure == "whole" else {**options, "measure": measure}
         key = recording_key(row["path"], options=key_options, config=config)
+        save_dir = None if details is None else child_folder(details, str(row["recording_id"]))
         found = cache.load(key)
-        if found is not None:
+        if found is not None and (save_dir is None or save_dir.is_dir()):
             plan.outcomes[index] = found
             plan.cached += 1
             continue
@@ -172,6 +181,8 @@ def _plan(layout: Layout, cache: ResultCache, config: dict) -> _Plan:
                 options=options,
                 config=config,
                 measure=measure,
+                save_dir=None if save_dir is None else str(save_dir),
+                figures=figures,
             )
         )
     return plan
@@ -310,6 +321,9 @@ def analyze_batch(
     scheduler=None,
     progress: bool = True,
     metrics: Sequence[str] | None = None,
+    details: bool = True,
+    figures: bool = True,
+    report: bool = True,
 ) -> BatchResult:
     """Analyse every recording of a plate layout and compare the conditions.
 
@@ -336,6 +350,14 @@ def analyze_batch(
     metrics : sequence of str, optional
         Numeric columns of ``Analysis.to_row()`` to normalise and compare (default:
         :data:`beatlab.batch.STANDARD_METRICS`).
+    details : bool
+        Write each ok recording's analysis folder (the files of ``beatlab analyze --out``)
+        into ``out_dir/recordings/<recording_id>``.
+    figures : bool
+        Draw the batch figures into ``out_dir/figures`` (each with the CSV of what it plots)
+        and each recording's figures into its folder.
+    report : bool
+        Write ``out_dir/report.html``, one self-contained file.
 
     Returns
     -------
@@ -380,7 +402,8 @@ def analyze_batch(
     out = Path(out_dir)
     cache = ResultCache(out / "cache")
     _save_layout(cache, layout)
-    plan = _plan(layout, cache, settings)
+    details_dir = out / "recordings" if details else None
+    plan = _plan(layout, cache, settings, details=details_dir, figures=figures)
     results, run = _execute(plan.tasks, workers=workers, threads=threads, scheduler=scheduler)
     run.update(recordings=len(layout.table), analysed=len(plan.tasks), cached=plan.cached)
     info = {
@@ -399,7 +422,56 @@ def analyze_batch(
     recordings = recordings_table(layout.table, [row for row, _ in plan.outcomes])
     beats = beats_table(layout.table, plan.outcomes)
     counts = {"analysed": len(plan.tasks), "cached": plan.cached}
-    return _finish(out, recordings, beats, metrics=metrics, info=info, counts=counts)
+    result = _finish(out, recordings, beats, metrics=metrics, info=info, counts=counts)
+    illustrate(out, metrics=metrics, figures=figures, report=report)
+    return result
+
+
+def illustrate(
+    out_dir: str | os.PathLike,
+    *,
+    metrics: Sequence[str] | None = None,
+    figures: bool = True,
+    report: bool = True,
+) -> dict[str, Path]:
+    """Draw the batch figures and write the report of a batch folder from its tables.
+
+    A figure or report that cannot be made is reported as a warning: the tables, already
+    written, stand.
+
+    Parameters
+    ----------
+    out_dir : path-like
+        A batch folder (``beatlab batch --out``).
+    metrics : sequence of str, optional
+        The metrics to draw (default: those the batch compared).
+    figures, report : bool
+        What to make.
+
+    Returns
+    -------
+    dict
+        Name -> path of each file made.
+    """
+    import warnings
+
+    out = Path(out_dir)
+    made: dict[str, Path] = {}
+    if figures:
+        try:
+            from beatlab.plots.batch import save_batch_figures
+
+            made.update(save_batch_figures(out, metrics=metrics))
+        except Exception as exc:  # the tables stand without their figures
+            warnings.warn(f"batch figures not drawn: {describe_error(exc)}", stacklevel=2)
+    if report:
+        try:
+            from beatlab.report import build_batch_report
+
+            made["report"] = build_batch_report(out)
+        except Exception as exc:  # the tables stand without their report
+            warnings.warn(f"report.html not written: {describe_error(exc)}", stacklevel=2)
+    return made
 
 
 def _collect(plan: _Plan, results: Iterable, cache: ResultCache, *, progress: bool) -> None:
@@ -493,7 +565,12 @@ def _read_info(out: Path) -> dict:
 
 
 def compare_batch(
-    out_dir: str | os.PathLike, *, config=None, metrics: Sequence[str] | None = None
+    out_dir: str | os.PathLike,
+    *,
+    config=None,
+    metrics: Sequence[str] | None = None,
+    figures: bool = True,
+    report: bool = True,
 ) -> BatchResult:
     """Recompute the statistics tables of a batch folder without analysing anything.
 
@@ -508,6 +585,8 @@ def compare_batch(
         cached results of this configuration (the layout of the last batch run).
     metrics : sequence of str, optional
         Metrics to normalise and compare (default: those of the batch).
+    figures, report : bool
+        Redraw the batch figures and rewrite ``report.html`` from the new tables.
 
     Returns
     -------
@@ -527,17 +606,21 @@ def compare_batch(
         recordings = read_table(out / "recordings.csv", ROW_DTYPES)
         beats = read_table(out / "beats.csv", BEAT_DTYPES)
         counts = {"analysed": 0, "cached": 0}
-        return _finish(
+        result = _finish(
             out, recordings, beats, metrics=metrics, info=info, counts=counts, write_rows=False
         )
+        illustrate(out, metrics=metrics, figures=figures, report=report)
+        return result
     settings = info["config"] if config is None else load_settings(config).to_dict()
     cache = ResultCache(out / "cache")
     layout = _load_layout(cache)
-    plan = _plan(layout, cache, settings)
+    plan = _plan(layout, cache, settings, details=None, figures=False)
     for task in plan.tasks:
         plan.outcomes[task.index] = (dict(_NOT_ANALYSED_ROW), pd.DataFrame())
     recordings = recordings_table(layout.table, [row for row, _ in plan.outcomes])
     beats = beats_table(layout.table, plan.outcomes)
     info["config"] = settings
     counts = {"analysed": 0, "cached": plan.cached}
-    return _finish(out, recordings, beats, metrics=metrics, info=info, counts=counts)
+    result = _finish(out, recordings, beats, metrics=metrics, info=info, counts=counts)
+    illustrate(out, metrics=metrics, figures=figures, report=report)
+    return result

@@ -17,6 +17,7 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import ndimage
 
+from beatlab._progress import progress_bar
 from beatlab.errors import InputError
 from beatlab.frames import block_mean
 from beatlab.signals.level import PlaneLeveller
@@ -27,6 +28,8 @@ logger = logging.getLogger(__name__)
 
 #: pixels used for the activity axis of :func:`relaxed_score`
 _SCORE_PIXELS = 2048
+#: frames whose change exceeds this share of the score's span are moving, in relaxed_score
+_MOVING_SHARE = 0.02
 #: frames within this many noise SDs of the relaxed end of the activity axis are at rest
 _REST_NOISE_SDS = 3.0
 #: a recording has a true rest when at least this share of its frames is at rest
@@ -171,7 +174,10 @@ def relaxed_score(frames: np.ndarray, *, iterations: int = 30) -> np.ndarray:
     principal component of the frames follows the activation ``a(t)`` up to sign. The sign
     is set so that the trace leaves the relaxed end fast: contraction is faster than
     relaxation (time to peak < relaxation time, a fact of cardiomyocyte mechanics; common
-    practice), judged by the 99th against the 1st percentile of the frame-to-frame change.
+    practice), judged by the mean rising against the mean falling speed over the frames that
+    move (frame-to-frame change above 2 % of the span). The means, not the extremes: a beat
+    whose relaxation ends abruptly (after an EAD-like bump, say) has its fastest frames in
+    relaxation, yet relaxes slower on average.
     This holds also when beats overlap and the cells never relax, where the contracted end
     is the more crowded one. When the change shows no clear asymmetry (ratio below 1.3:
     noise, symmetric kinetics), the relaxed end is the one where more frames pile up.
@@ -195,10 +201,12 @@ def relaxed_score(frames: np.ndarray, *, iterations: int = 30) -> np.ndarray:
     if span <= 0:
         return np.zeros(n)
     d = np.diff(s)
-    rise, fall = np.percentile(d, 99), -np.percentile(d, 1)
-    if rise > 0 and fall > 0 and abs(np.log(rise / fall)) > np.log(1.3):
+    moving = np.abs(d) > _MOVING_SHARE * span  # frames of real motion, not noise at rest
+    rise = d[moving & (d > 0)]
+    fall = -d[moving & (d < 0)]
+    if len(rise) and len(fall) and abs(np.log(rise.mean() / fall.mean())) > np.log(1.2):
         # the trace leaves the relaxed end fast: contraction is faster than relaxation
-        if rise < fall:
+        if rise.mean() < fall.mean():
             s = -s
     else:
         # no clear speed asymmetry (noise, symmetric kinetics): the relaxed end is where
@@ -254,12 +262,10 @@ def _average_frames(source, idx, shifts, level_tilt, *, anchor):
         moved.append(f)
     leveller = PlaneLeveller(moved[0], tilt=level_tilt)
     stack = leveller.level_stack(np.stack(moved))
-    with np.errstate(invalid="ignore"):
-        template = np.nanmean(stack, axis=0) if np.isnan(stack).any() else stack.mean(axis=0)
+    template = _nan_mean(stack)
     k = stack.shape[0]
     if k > 1:
-        with np.errstate(invalid="ignore"):
-            resid = np.nanmean((stack - template) ** 2, axis=0)
+        resid = _nan_mean((stack - template) ** 2)
         # each frame is part of the mean: E[resid] = (1 - 1/k) sigma^2
         noise_var = resid * k / (k - 1)
     else:
@@ -267,8 +273,24 @@ def _average_frames(source, idx, shifts, level_tilt, *, anchor):
     return template.astype(np.float32), noise_var.astype(np.float32), int(k)
 
 
+def _nan_mean(stack: np.ndarray) -> np.ndarray:
+    """Mean over axis 0 ignoring NaN; NaN where a pixel is NaN in every frame.
+
+    Unlike ``np.nanmean`` it does not warn "Mean of empty slice" for those pixels (the
+    outside of a camera's valid area is NaN in every frame).
+    """
+    if not np.isnan(stack).any():
+        return stack.mean(axis=0)
+    count = np.sum(~np.isnan(stack), axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, np.nansum(stack, axis=0) / count, np.nan)
+
+
 def _filled(frame: np.ndarray) -> np.ndarray:
-    if np.isnan(frame).any():
+    nan = np.isnan(frame)
+    if nan.all():  # a dropped frame stays NaN (np.nanmedian would warn "All-NaN slice")
+        return frame.astype(np.float32)
+    if nan.any():
         return np.where(np.isnan(frame), np.nanmedian(frame), frame).astype(np.float32)
     return frame
 
@@ -335,8 +357,6 @@ def estimate_rest_template(
     shifts are measured by phase correlation (Kuglin & Hines 1975) on the block-averaged
     frames, so stage drift does not read as deviation nor blur the template.
     """
-    from tqdm.auto import tqdm
-
     ny, nx = source.shape
     factor = max(1, min(ny, nx) // max(int(lowres_px), 8))
     while (
@@ -345,16 +365,18 @@ def estimate_rest_template(
     ):
         factor += 1
     low = np.empty((source.n_frames, ny // factor, nx // factor), dtype=np.float32)
-    with tqdm(
-        total=source.n_frames, desc="rest pass", unit="frame", disable=not progress, leave=False
-    ) as bar:
+    with progress_bar(total=source.n_frames, desc="finding rest frames", enabled=progress) as bar:
         for i0, block in source.chunks():
             for k, frame in enumerate(block):
                 low[i0 + k] = _filled(block_mean(frame, factor))
             bar.update(len(block))
     n = low.shape[0]
     if not np.isfinite(low).any():
-        raise InputError("every pixel of every frame is NaN; nothing to analyse")
+        name = getattr(getattr(source, "recording", None), "source", "the recording")
+        raise InputError(
+            f"{name}: every pixel of every frame is NaN or infinite; nothing to analyse "
+            "(check the export that wrote the file)"
+        )
     window = cv2.createHanningWindow(low.shape[:0:-1], cv2.CV_64F)
     ref = np.median(low, axis=0)
     shifts = np.zeros((n, 2))

@@ -94,7 +94,8 @@ def analyze_regions(
         regions were given.
     """
     n_labels = int(reference.labels.max())
-    if not n_labels or not (reference.user_regions or settings.regions.detect):
+    nothing_moved = len(frames.pattern_frames) == 0  # no pattern to project onto
+    if not n_labels or nothing_moved or not (reference.user_regions or settings.regions.detect):
         return empty_regions(reference.labels.shape)
     user = reference.user_regions
     found = find_regions(
@@ -136,9 +137,20 @@ def analyze_regions(
     if not results:
         return empty_regions(reference.labels.shape)
     return RegionResult(
-        table=region_table(found, [r.summary for r in results]),
+        table=_float_columns(region_table(found, [r.summary for r in results])),
         beats=pd.concat(beats, ignore_index=True),
         traces=pd.concat(traces, ignore_index=True),
         labels=found.labels,
         results=tuple(results),
     )
+
+
+def _float_columns(table: pd.DataFrame) -> pd.DataFrame:
+    """The schema's float columns as floats, also where every region's value is undefined.
+
+    A column of None (alternans_index of regions with too few beats, say) would otherwise be
+    of object type in memory and float once read back from regions.csv.
+    """
+    kinds = {f.name: f.dtype for f in TABLES["regions"].columns}
+    floats = [c for c in table.columns if kinds.get(c) == "float"]
+    return table.assign(**{c: pd.to_numeric(table[c]).astype(float) for c in floats})

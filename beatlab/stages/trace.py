@@ -99,7 +99,7 @@ def analyze_trace(
         window_ms=velocity.window_ms,
         polyorder=velocity.polyorder,
     )
-    noise = float(estimate_noise(work))
+    noise = float(estimate_noise(work, method="robust"))
     pattern_snr = None
     if pattern_frames is not None and len(pattern_frames):
         at_pattern = work[np.asarray(pattern_frames, dtype=int)]

@@ -142,3 +142,28 @@ def test_a_common_bias_of_the_shift_estimate_is_not_taken_for_drift(monkeypatch)
     activation = np.asarray(sim.activation)
     active = activation.reshape(activation.shape[0], -1).max(axis=1)
     assert np.all(active[rest.rest] < 0.05)  # the resting frames are truly at rest
+
+
+def _abrupt_end_activation(n_beats=6, rest=12):
+    """Per beat: a 6-frame rise, a slow 14-frame fall to 50 %, a 1-frame drop, then rest."""
+    rise = 0.5 - 0.5 * np.cos(np.linspace(0, np.pi, 7))[1:]
+    fall = np.linspace(1.0, 0.5, 15)[1:]
+    beat = np.concatenate([np.zeros(rest), rise, fall, [0.0]])
+    return np.tile(beat, n_beats)
+
+
+def test_relaxed_end_holds_when_relaxation_ends_abruptly():
+    # An EAD-like beat can end its relaxation with a fast drop: its fastest frame-to-frame
+    # change is then a fall, although it relaxes slower on average (a fact of cardiomyocyte
+    # mechanics, common practice: contraction is faster than relaxation). The old rule (99th
+    # vs 1st percentile of the change) took the contracted state for rest here.
+    from beatlab.signals.rest import relaxed_score
+
+    a = _abrupt_end_activation()
+    rng = np.random.default_rng(3)
+    pattern = rng.standard_normal(400)
+    frames = np.outer(a, pattern) + 0.01 * rng.standard_normal((len(a), 400))
+    score = relaxed_score(frames)
+    relaxed, contracted = a < 0.05, a > 0.95
+    assert score[relaxed].max() < 0.1 * score.max()
+    assert score[contracted].min() > 0.9 * score.max()
