@@ -13,6 +13,7 @@ from beatlab.errors import (
     ConfigError,
     InputError,
     MetadataError,
+    OutputError,
 )
 from beatlab.io import Recording, open_recording
 from beatlab.pipeline import analyze
@@ -27,6 +28,7 @@ __all__ = [
     "ConfigError",
     "InputError",
     "MetadataError",
+    "OutputError",
     "Recording",
     "Settings",
     "__version__",

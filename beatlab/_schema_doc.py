@@ -42,7 +42,13 @@ def render() -> str:
     out = ["# Outputs of `beatlab analyze`", "", INTRO, "", "## Files", ""]
     out += ["| file | content |", "|---|---|"]
     out += [f"| `{name}` | {content} |" for name, content in FILES]
-    out += ["", "Figures are not written with `--no-figures`."]
+    out += [
+        "",
+        "Figures, their `_plotted.csv` files and `report.html` are not written with "
+        "`--no-figures`. Each `<figure>_plotted.csv` has one row per plotted point: `panel`, "
+        "`series`, `item` (beat or region), `x`, `y`, `value` (map cells) and the unit of "
+        "each (`x_unit`, `y_unit`, `value_unit`).",
+    ]
     for table in TABLES.values():
         out += ["", f"## `{table.file}`", "", table.meaning, ""]
         out += _table_md(table.columns)

@@ -8,13 +8,22 @@ from __future__ import annotations
 
 import argparse
 import logging
+import math
 import re
+import signal
 import sys
 import warnings
 from pathlib import Path
 
 from beatlab._version import __version__
-from beatlab.errors import AnalysisError, BeatlabError, BeatlabWarning, ConfigError, InputError
+from beatlab.errors import (
+    AnalysisError,
+    BeatlabError,
+    BeatlabWarning,
+    ConfigError,
+    InputError,
+    OutputError,
+)
 
 __all__ = ["build_parser", "main"]
 
@@ -23,9 +32,17 @@ EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
 
 class _Parser(argparse.ArgumentParser):
     def error(self, message):  # one line, exit 2, like every other error
-        self.print_usage(sys.stderr)
-        print(f"beatlab: error: {message}", file=sys.stderr)
+        print(f"beatlab: error: {message} (see {self.prog} --help)", file=sys.stderr)
         raise SystemExit(EXIT_USAGE)
+
+
+class _DefaultsFormatter(argparse.ArgumentDefaultsHelpFormatter):
+    """Shows "(default: X)" after each option's help, except where there is no default."""
+
+    def _get_help_string(self, action):
+        if action.default in (None, False) or action.default is argparse.SUPPRESS:
+            return action.help
+        return super()._get_help_string(action)
 
 
 def _positive(text: str) -> float:
@@ -33,8 +50,8 @@ def _positive(text: str) -> float:
         value = float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"must be positive, got {text!r}")
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"must be positive and finite, got {text!r}")
     return value
 
 
@@ -102,6 +119,12 @@ def _add_batch(sub) -> None:
         help="run on a Dask cluster, e.g. tcp://host:8786 (its workers must see the files)",
     )
     b.add_argument("--no-progress", action="store_true", help="no progress bar")
+    b.add_argument(
+        "--no-figures",
+        action="store_true",
+        help="no figures (batch figures/ and each recording's), no per-recording folders",
+    )
+    b.add_argument("--no-report", action="store_true", help="do not write report.html")
     _add_metrics(b)
 
     c = sub.add_parser(
@@ -118,6 +141,36 @@ def _add_batch(sub) -> None:
         help="use the cached results of this configuration (default: the batch's own)",
     )
     _add_metrics(c)
+
+    r = sub.add_parser(
+        "report",
+        help="rebuild report.html of a batch or analysis folder",
+        description="Write DIR/report.html, one self-contained file (figures embedded, no "
+        "network access needed), from the files of a beatlab batch folder (tables, "
+        "figures/, recordings/) or of one beatlab analyze folder. Redraws the batch figures "
+        "unless --no-figures.",
+    )
+    r.add_argument("dir", metavar="DIR", help="the --out folder of beatlab batch or analyze")
+    r.add_argument("--no-figures", action="store_true", help="keep the existing figures")
+
+    d = sub.add_parser(
+        "demo",
+        help="simulate an invented plate experiment, analyse it and write its report",
+        description="The demo scenario end to end, from nothing: copies the scenario files "
+        "(layout.csv, scenario.toml, config.toml, README.md) into DIR, simulates every "
+        "recording of the layout into DIR/recordings, runs beatlab batch into DIR/results "
+        "and prints where report.html is. About 2-3 minutes on 2 cores. The compounds and "
+        "data are invented.",
+    )
+    d.add_argument(
+        "--out", metavar="DIR", default="beatlab-demo", help="demo folder (default: %(default)s)"
+    )
+    d.add_argument(
+        "--workers",
+        type=_positive_int,
+        metavar="N",
+        help="recordings analysed at once (default: every core)",
+    )
 
 
 def _add_metrics(p) -> None:
@@ -140,7 +193,8 @@ def build_parser() -> argparse.ArgumentParser:
         "use only.",
     )
     parser.add_argument("--version", action="version", version=f"beatlab {__version__}")
-    parser.add_argument("--debug", action="store_true", help="show tracebacks and debug logs")
+    debug_help = "show tracebacks, library warnings and debug logs"
+    parser.add_argument("--debug", action="store_true", help=debug_help)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
 
@@ -168,35 +222,104 @@ def build_parser() -> argparse.ArgumentParser:
 
     _add_batch(sub)
 
+    _add_reconstruct(sub)
+    _add_simulate(sub)
+    for command in sub.choices.values():  # `beatlab analyze X --debug` works too
+        command.add_argument(
+            "--debug", action="store_true", default=argparse.SUPPRESS, help=debug_help
+        )
+    return parser
+
+
+def _add_reconstruct(sub) -> None:
     r = sub.add_parser(
         "reconstruct",
         help="off-axis holograms to an OPD OME-TIFF",
-        description="Reconstruct OPD (nm) frames from raw off-axis holograms.",
+        description="Reconstruct OPD (optical path delay, nm) frames from raw off-axis "
+        "holograms and write them as an OME-TIFF that beatlab analyze reads as it is. The "
+        "wavelength and the pixel size come from the file where it records them; options "
+        "override the file. The frame rate is not needed for the reconstruction: it is copied "
+        "into the output when known (from the file or --fps).",
+        formatter_class=_DefaultsFormatter,
     )
-    r.add_argument("path", metavar="HOLOGRAMS")
-    r.add_argument("--reference", metavar="PATH", help="sample-free hologram frame(s)")
-    r.add_argument("--wavelength-nm", type=_positive, metavar="NM", required=True)
     r.add_argument(
-        "--pixel-size-um", type=_positive, metavar="UM", help="sample-plane camera pixel size"
+        "path",
+        metavar="HOLOGRAMS",
+        help="raw hologram frames: OME-TIFF, TIFF, .npy, frame folder or file.h5:/dataset",
     )
-    r.add_argument("--fps", type=_positive, metavar="HZ")
-    r.add_argument("--out", metavar="FILE", required=True, help="output OPD .ome.tif")
-    r.add_argument("--config", metavar="FILE", help="TOML file ([holography] section)")
+    r.add_argument("--out", metavar="FILE", required=True, help="output OPD file (.ome.tif)")
+    r.add_argument(
+        "--reference",
+        metavar="PATH",
+        help="sample-free hologram frame(s) of the same set-up, divided out to remove the "
+        "optics' own phase (default: a polynomial fit of the background phase is removed)",
+    )
+    r.add_argument(
+        "--wavelength-nm",
+        type=_positive,
+        metavar="NM",
+        help="illumination wavelength; needed when the file does not record it",
+    )
+    r.add_argument(
+        "--pixel-size-um",
+        type=_positive,
+        metavar="UM",
+        help="sample-plane camera pixel size (camera pitch / magnification); needed when the "
+        "file does not record it",
+    )
+    r.add_argument(
+        "--fps", type=_positive, metavar="HZ", help="frame rate written into the output"
+    )
+    r.add_argument(
+        "--config",
+        metavar="FILE",
+        help="TOML file of parameter overrides (its [holography] section: side band, window "
+        "radius, refocusing)",
+    )
 
+
+def _add_simulate(sub) -> None:
     s = sub.add_parser(
         "simulate",
         help="render a synthetic beating culture with its truth",
         description="Render a synthetic recording of a beating culture with "
         "exact ground truth (OME-TIFF + truth JSON).",
+        formatter_class=_DefaultsFormatter,
     )
     s.add_argument("--out", metavar="FILE", required=True, help="output .ome.tif")
-    s.add_argument("--kind", choices=("opd", "phase", "wrapped_phase", "hologram"), default="opd")
-    s.add_argument("--layout", choices=("clusters", "confluent"), default="clusters")
-    s.add_argument("--duration-s", type=_positive, default=10.0, metavar="S")
-    s.add_argument("--fps", type=_positive, default=30.0, metavar="HZ")
-    s.add_argument("--size-px", type=int, default=128, metavar="N", help="frame side")
-    s.add_argument("--pixel-size-um", type=_positive, default=0.5, metavar="UM")
-    s.add_argument("--wavelength-nm", type=_positive, default=632.8, metavar="NM")
+    s.add_argument(
+        "--kind",
+        choices=("opd", "phase", "wrapped_phase", "hologram"),
+        default="opd",
+        help="what the pixel values are",
+    )
+    s.add_argument(
+        "--layout",
+        choices=("clusters", "confluent"),
+        default="clusters",
+        help="separate cell clusters, or a confluent sheet",
+    )
+    s.add_argument(
+        "--duration-s", type=_positive, default=10.0, metavar="S", help="recording length"
+    )
+    s.add_argument("--fps", type=_positive, default=30.0, metavar="HZ", help="frame rate")
+    s.add_argument(
+        "--size-px", type=_positive_int, default=128, metavar="N", help="frame side, pixels"
+    )
+    s.add_argument(
+        "--pixel-size-um",
+        type=_positive,
+        default=0.5,
+        metavar="UM",
+        help="sample-plane pixel size",
+    )
+    s.add_argument(
+        "--wavelength-nm",
+        type=_positive,
+        default=632.8,
+        metavar="NM",
+        help="illumination wavelength",
+    )
     s.add_argument(
         "--rate-bpm",
         type=float,
@@ -207,7 +330,9 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument(
         "--ibi-cv", type=float, default=0.0, metavar="CV", help="interval variability (0 regular)"
     )
-    s.add_argument("--strain", type=float, default=0.03, help="peak fractional shortening")
+    s.add_argument(
+        "--strain", type=float, default=0.03, metavar="X", help="peak fractional shortening"
+    )
     s.add_argument(
         "--noise-nm", type=float, default=1.0, metavar="NM", help="per-pixel white noise (RMS)"
     )
@@ -242,7 +367,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     s.add_argument(
         "--clusters",
-        type=int,
+        type=_positive_int,
         default=1,
         metavar="N",
         help="number of cell clusters (contraction centres)",
@@ -252,7 +377,7 @@ def build_parser() -> argparse.ArgumentParser:
         type=float,
         nargs="+",
         metavar="BPM",
-        help="independent rate per cluster",
+        help="independent rate per cluster (default: all at --rate-bpm)",
     )
     s.add_argument("--rise-s", type=float, default=0.15, metavar="S", help="onset to peak")
     s.add_argument("--relax-s", type=float, default=0.30, metavar="S", help="relaxation time")
@@ -261,22 +386,30 @@ def build_parser() -> argparse.ArgumentParser:
         type=float,
         nargs="+",
         metavar="X",
-        help="per-beat amplitude multipliers, cycled (1 0.55 for alternans)",
+        help="per-beat amplitude multipliers, cycled (1 0.55 for alternans; default: all 1)",
     )
     s.add_argument(
         "--ead-beats",
         type=int,
         nargs="+",
         metavar="K",
-        help="0-based beats with an EAD-like second relaxation step",
+        help="0-based beats with an EAD-like second relaxation step (default: none)",
     )
-    s.add_argument("--seed", type=int, default=0)
-    return parser
+    s.add_argument("--seed", type=int, default=0, metavar="N", help="random seed")
+
+
+def _analysis_folder(args) -> Path:
+    if args.out:
+        return Path(args.out)
+    stem = str(Path(args.path.split(":/")[0])).removesuffix(".ome.tif").removesuffix(".tif")
+    return Path(stem + "_beatlab")
 
 
 def _cmd_analyze(args) -> int:
+    from beatlab.io.writers import check_output_dir
     from beatlab.pipeline import analyze
 
+    out = check_output_dir(_analysis_folder(args))  # before any work, not after it
     result = analyze(
         args.path,
         args.config,
@@ -286,21 +419,10 @@ def _cmd_analyze(args) -> int:
         wavelength_nm=args.wavelength_nm,
         reference=args.reference,
         regions=args.regions,
-        progress=sys.stderr.isatty(),
-    )
-    out = (
-        Path(args.out)
-        if args.out
-        else Path(
-            str(Path(args.path.split(":/")[0])).removesuffix(".ome.tif").removesuffix(".tif")
-            + "_beatlab"
-        )
+        progress=True,  # a bar on a terminal, plain lines in a log
     )
     result.save(out, figures=not args.no_figures)
-    s = result.summary
-    rate = s.get("beat_rate_bpm")
-    rate_text = "n/a" if rate is None else f"{rate:.1f} bpm"
-    print(f"{args.path}: {s['beat_count']} beats, {rate_text}, rhythm {s['rhythm']} -> {out}")
+    print(f"{args.path}: {result.headline()} -> {out}")
     return EXIT_OK
 
 
@@ -334,23 +456,45 @@ def _print_batch(result, *, verb: str, list_failures: bool) -> None:
         )
 
 
-def _cmd_batch(args) -> int:
-    from beatlab.batch import analyze_batch
+def _interrupt_on_sigterm(signum, frame):
+    raise KeyboardInterrupt  # a batch stops as on Ctrl-C: finished recordings stay cached
 
+
+def _cmd_batch(args) -> int:
     layout = Path(args.layout)
     out = Path(args.out) if args.out else layout.with_name(layout.stem + "_batch")
-    result = analyze_batch(
+    previous = signal.signal(signal.SIGTERM, _interrupt_on_sigterm)
+    try:
+        result = _run_batch(layout, out, args)
+    except KeyboardInterrupt:
+        print(
+            f"beatlab: interrupted; the finished recordings are kept in {out / 'cache'}: run "
+            "the same command again to go on from there",
+            file=sys.stderr,
+        )
+        return 130
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    _print_batch(result, verb="analysed", list_failures=True)
+    return EXIT_FAILURE if result.counts["error"] else EXIT_OK
+
+
+def _run_batch(layout: Path, out: Path, args):
+    from beatlab.batch import analyze_batch
+
+    return analyze_batch(
         layout,
         out_dir=out,
         config=args.config,
         workers=args.workers,
         threads=args.threads,
         scheduler=args.scheduler,
-        progress=not args.no_progress and sys.stderr.isatty(),
+        progress=not args.no_progress,  # a bar on a terminal, plain lines in a log
         metrics=args.metrics,
+        details=not args.no_figures,
+        figures=not args.no_figures,
+        report=not args.no_report,
     )
-    _print_batch(result, verb="analysed", list_failures=True)
-    return EXIT_FAILURE if result.counts["error"] else EXIT_OK
 
 
 def _cmd_compare(args) -> int:
@@ -361,10 +505,48 @@ def _cmd_compare(args) -> int:
     return EXIT_OK
 
 
+def _cmd_report(args) -> int:
+    from beatlab.batch import illustrate
+    from beatlab.report import build_recording_report
+
+    folder = Path(args.dir)
+    if (folder / "batch.json").is_file():
+        made = illustrate(folder, figures=not args.no_figures, report=True)
+        if "report" not in made:
+            return EXIT_FAILURE  # the reason was shown as a warning
+        path = made["report"]
+    elif (folder / "summary.json").is_file():
+        path = build_recording_report(folder)
+    else:
+        raise InputError(
+            f"{folder} is neither a batch folder (batch.json) nor an analysis folder "
+            "(summary.json); pass the --out folder of beatlab batch or beatlab analyze"
+        )
+    print(f"report -> {path}")
+    return EXIT_OK
+
+
+def _cmd_demo(args) -> int:
+    from beatlab.demo import run_demo
+
+    run = run_demo(args.out, workers=args.workers)
+    counts = run.batch.counts
+    print(
+        f"demo: {counts['ok']} recordings analysed, {counts['error']} failed, "
+        f"{counts['excluded']} excluded in {sum(run.seconds.values()):.0f} s "
+        f"(simulated in {run.seconds['simulate']:.0f} s)"
+    )
+    print(f"report -> {run.report}")
+    print(f"scenario -> {run.folder / 'README.md'}")
+    return EXIT_FAILURE if counts["error"] else EXIT_OK
+
+
 def _cmd_reconstruct(args) -> int:
     from beatlab.holography import reconstruct_file
+    from beatlab.io.writers import check_output_file
     from beatlab.settings import load_settings
 
+    check_output_file(args.out)
     settings = load_settings(args.config)
     out = reconstruct_file(
         args.path,
@@ -374,7 +556,7 @@ def _cmd_reconstruct(args) -> int:
         fps=args.fps,
         reference=args.reference,
         holography=settings.holography,
-        progress=sys.stderr.isatty(),
+        progress=True,
     )
     print(f"wrote {out}")
     return EXIT_OK
@@ -417,7 +599,9 @@ _COMMANDS = {
     "analyze": _cmd_analyze,
     "batch": _cmd_batch,
     "compare": _cmd_compare,
+    "demo": _cmd_demo,
     "reconstruct": _cmd_reconstruct,
+    "report": _cmd_report,
     "simulate": _cmd_simulate,
 }
 
@@ -435,6 +619,7 @@ _FLAGS = {
     "workers": "--workers",
     "threads": "--threads",
     "metrics": "--metrics",
+    "out": "--out",
 }
 _PARAMETER = re.compile(r"\b(" + "|".join(_FLAGS) + r")=")
 
@@ -444,37 +629,60 @@ def as_flags(message: str) -> str:
     return _PARAMETER.sub(lambda m: _FLAGS[m.group(1)] + " ", message)
 
 
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def _setup_logging(*, debug: bool) -> None:
+    """Our log lines on stderr; other libraries' only with --debug (tifffile logs, e.g.)."""
+    handler = logging.StreamHandler(sys.stderr)
+    handler.setFormatter(logging.Formatter("beatlab: %(levelname)s: %(message)s"))
+    if not debug:
+        handler.addFilter(lambda record: record.name.split(".")[0] == "beatlab")
+    logging.basicConfig(level=logging.DEBUG if debug else logging.WARNING, handlers=[handler])
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    """Our warnings as one line; a library's (numpy's "Mean of empty slice") only in the log."""
+    if issubclass(category, BeatlabWarning):
+        print(f"beatlab: warning: {_one_line(as_flags(str(message)))}", file=sys.stderr)
+    else:
+        logging.getLogger("beatlab").debug("%s: %s", category.__name__, message)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the ``beatlab`` command; return the exit code."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # --help, --version, or a usage error already printed
+        return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     from tqdm import tqdm
 
     # no progress-monitor thread: the per-frame pass forks worker processes, and forking a
     # process with extra threads risks a lock held at the fork
     tqdm.monitor_interval = 0
-    logging.basicConfig(
-        level=logging.DEBUG if args.debug else logging.WARNING,
-        format="beatlab: %(levelname)s: %(message)s",
-    )
+    _setup_logging(debug=args.debug)
+    with warnings.catch_warnings():  # restored on return (main may run inside a program)
+        warnings.simplefilter("default")
+        if not args.debug:
+            warnings.showwarning = _show_warning
+        return _run(args)
 
-    def show_warning(message, category, filename, lineno, file=None, line=None):
-        print(f"beatlab: warning: {as_flags(str(message))}", file=sys.stderr)
 
-    if not args.debug:
-        warnings.showwarning = show_warning
-        warnings.simplefilter("default", BeatlabWarning)
+def _run(args) -> int:
+    """The command, its errors mapped to one line and an exit code."""
     try:
         return _COMMANDS[args.command](args)
-    except (InputError, ConfigError) as exc:
+    except (InputError, ConfigError, OutputError) as exc:
         if args.debug:
             raise
-        print(f"beatlab: error: {as_flags(str(exc))}", file=sys.stderr)
+        print(f"beatlab: error: {_one_line(as_flags(str(exc)))}", file=sys.stderr)
         return EXIT_USAGE
     except (AnalysisError, BeatlabError) as exc:
         if args.debug:
             raise
-        print(f"beatlab: error: {as_flags(str(exc))}", file=sys.stderr)
+        print(f"beatlab: error: {_one_line(as_flags(str(exc)))}", file=sys.stderr)
         return EXIT_FAILURE
     except KeyboardInterrupt:
         print("beatlab: interrupted", file=sys.stderr)
@@ -483,8 +691,8 @@ def main(argv: list[str] | None = None) -> int:
         if args.debug:
             raise
         print(
-            f"beatlab: error: unexpected {type(exc).__name__}: {exc} (rerun with --debug "
-            "for the traceback and report it)",
+            f"beatlab: error: unexpected {type(exc).__name__}: {_one_line(exc)} (rerun with "
+            "--debug for the traceback and report it)",
             file=sys.stderr,
         )
         return EXIT_FAILURE

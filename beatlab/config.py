@@ -8,6 +8,8 @@ it (:func:`default_toml`) and a test keeps the two identical.
 from __future__ import annotations
 
 import copy
+import difflib
+import math
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -258,6 +260,8 @@ def _check_value(section: str, key: str, value: Any, param: Param) -> Any:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise ConfigError(f"config key {name} must be a number, got {value!r}")
         value = float(value)
+        if not math.isfinite(value):
+            raise ConfigError(f"config key {name} must be a finite number, got {value!r}")
     elif isinstance(default, str):
         if not isinstance(value, str):
             raise ConfigError(f"config key {name} must be a string, got {value!r}")
@@ -272,6 +276,13 @@ def _check_value(section: str, key: str, value: Any, param: Param) -> Any:
     return value
 
 
+def _did_you_mean(name: str, known, *, section: bool = False) -> str:
+    close = difflib.get_close_matches(str(name), list(known), n=1)
+    if not close:
+        return ""
+    return f" (did you mean [{close[0]}]?)" if section else f" (did you mean {close[0]}?)"
+
+
 def merge_config(base: dict, overrides: dict) -> dict:
     """Validate ``overrides`` (nested sections) and merge them over ``base`` into a new dict.
 
@@ -283,16 +294,20 @@ def merge_config(base: dict, overrides: dict) -> dict:
     """
     merged = copy.deepcopy(base)
     for section, values in overrides.items():
-        if section not in PARAMETERS:
-            raise ConfigError(
-                f"unknown config section [{section}]; known: {', '.join(PARAMETERS)}"
-            )
         if not isinstance(values, dict):
-            raise ConfigError(f"config section [{section}] must be a table of keys")
+            homes = [sec for sec, keys in PARAMETERS.items() if section in keys]
+            where = f"under [{homes[0]}]" if homes else "under its [section]"
+            raise ConfigError(f"config key {section} is outside any [section]; put it {where}")
+        if section not in PARAMETERS:
+            hint = _did_you_mean(section, PARAMETERS, section=True)
+            raise ConfigError(
+                f"unknown config section [{section}]{hint}; known: {', '.join(PARAMETERS)}"
+            )
         for key, value in values.items():
             if key not in PARAMETERS[section]:
                 raise ConfigError(
-                    f"unknown config key {section}.{key}; known in [{section}]: "
+                    f"unknown config key {section}.{key}"
+                    f"{_did_you_mean(key, PARAMETERS[section])}; known in [{section}]: "
                     f"{', '.join(PARAMETERS[section])}"
                 )
             merged[section][key] = _check_value(section, key, value, PARAMETERS[section][key])
@@ -328,11 +343,21 @@ def load_config(source: str | os.PathLike | dict | None = None) -> dict:
         raise ConfigError(
             f"cannot read config file {path}: {exc.strerror}; check config=FILE"
         ) from exc
+    except UnicodeDecodeError as exc:
+        raise ConfigError(
+            f"config file {path} is not UTF-8 text; pass config=FILE naming a TOML file"
+        ) from exc
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"config file {path} is not valid TOML: {exc}") from exc
-    return merge_config(default_config(), data)
+        raise ConfigError(
+            f"config file {path} is not valid TOML: {exc}; fix that line (see "
+            "configs/default.toml)"
+        ) from exc
+    try:
+        return merge_config(default_config(), data)
+    except ConfigError as exc:
+        raise ConfigError(f"{path}: {exc}") from None
 
 
 def _toml_value(value: Any) -> str:

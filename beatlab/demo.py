@@ -166,6 +166,7 @@ def run_demo(
     *,
     workers: int | None = None,
     quiet: bool = False,
+    recording: Mapping | None = None,
 ) -> DemoRun:
     """Simulate the demo experiment, analyse it as a batch and write its report.
 
@@ -178,6 +179,9 @@ def run_demo(
         Recordings analysed at once (default: every core).
     quiet : bool
         No progress lines on stderr.
+    recording : mapping, optional
+        Overrides of the scenario's ``[recording]`` section (``shape_px``, ``duration_s``,
+        ``fps``, ...), e.g. smaller recordings for a quick check.
 
     Returns
     -------
@@ -197,6 +201,13 @@ def run_demo(
     for name in DEMO_FILES:
         (folder / name).write_text(_read_scenario_file(name), encoding="utf-8")
     scenario = _scenario()
+    unknown = set(recording or {}) - set(scenario["recording"])
+    if unknown:
+        raise InputError(
+            f"unknown recording setting(s) {sorted(unknown)}; use keys of "
+            f"{sorted(scenario['recording'])}"
+        )
+    scenario["recording"].update(recording or {})
     layout = pd.read_csv(folder / "layout.csv", dtype=str, keep_default_na=False)
     todo = layout[~layout["exclude"].str.lower().isin(("yes", "true", "1"))]
     started = time.perf_counter()
@@ -214,7 +225,7 @@ def run_demo(
         out_dir=results,
         config=folder / "config.toml",
         workers=workers,
-        progress=not quiet and sys.stderr.isatty(),
+        progress=not quiet,
     )
     seconds = {
         "simulate": round(simulated - started, 1),

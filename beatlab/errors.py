@@ -7,6 +7,7 @@ __all__ = [
     "ConfigError",
     "InputError",
     "MetadataError",
+    "OutputError",
 ]
 
 
@@ -27,6 +28,10 @@ class MetadataError(InputError):
 
 class ConfigError(BeatlabError, ValueError):
     """A configuration key is unknown, or its value has the wrong type or range."""
+
+
+class OutputError(BeatlabError, OSError):
+    """An output path cannot be written (an existing file where a folder goes, no permission)."""
 
 
 class AnalysisError(BeatlabError, RuntimeError):

@@ -37,7 +37,11 @@ def _write_table(df, out: Path, name: str) -> Path:
 
 
 def save_analysis(
-    analysis, out_dir: str | os.PathLike, *, figures: bool = True
+    analysis,
+    out_dir: str | os.PathLike,
+    *,
+    figures: bool = True,
+    figure_formats: tuple[str, ...] = ("png", "svg"),
 ) -> dict[str, Path]:
     """Write summary.json, beats.csv, trace.csv, average_beat.csv, region files, maps, figures.
 
@@ -48,7 +52,11 @@ def save_analysis(
     out_dir : path-like
         Output folder, created if needed. Every file is written atomically.
     figures : bool
-        Also draw ``trace.png`` and ``maps.png``.
+        Also draw the figures of :func:`beatlab.plots.save_recording_figures` (trace,
+        average_beat, poincare, maps, regions), each with ``<name>_plotted.csv`` beside it,
+        and ``report.html`` (:func:`beatlab.report.build_recording_report`).
+    figure_formats : tuple of str
+        Image formats of the figures (``png``, ``svg``, ``pdf``).
 
     Returns
     -------
@@ -71,22 +79,10 @@ def save_analysis(
             np.savez_compressed(fh, **arrays)
     paths["maps"] = out / "maps.npz"
     if figures:
-        px_um = analysis.summary["metadata"]["analysis_pixel_size_um"]
-        from beatlab.plots import save_figure
-        from beatlab.plots.maps import plot_maps
-        from beatlab.plots.trace import plot_trace
+        from beatlab.plots import save_recording_figures
 
-        paths["trace_png"] = save_figure(
-            lambda ax: plot_trace(analysis.trace, analysis.beats, ax=ax),
-            out / "trace.png",
-            size=(7.0, 3.0),
-        )
-        paths["maps_png"] = save_figure(
-            lambda fig: plot_maps(
-                analysis.maps, analysis.template, analysis.mask, fig=fig, pixel_size_um=px_um
-            ),
-            out / "maps.png",
-            size=(9.0, 3.0),
-            whole_figure=True,
-        )
+        paths.update(save_recording_figures(analysis, out, formats=figure_formats))
+        from beatlab.report import build_recording_report
+
+        paths["report"] = build_recording_report(out)
     return paths

@@ -61,13 +61,33 @@ def _messages(caught: list[warnings.WarningMessage]) -> list[str]:
     ]
 
 
-def _warn_if_mixed(regions: pd.DataFrame) -> None:
-    """Warn when two or more regions beat on their own: whole-field numbers mix them."""
+def _no_propagation_across_regions(maps: dict) -> dict:
+    """Onset delays between regions that beat on their own are no propagation: unresolved."""
+    prop = dict(maps["propagation"])
+    if not prop.get("resolved"):
+        return maps
+    prop.update(
+        resolved=False,
+        speed_cm_s=None,
+        direction_deg=None,
+        reason="regions beat on their own: delays between them are not a propagating wave",
+    )
+    return {**maps, "propagation": prop}
+
+
+def _warn_if_mixed(regions: pd.DataFrame) -> bool:
+    """Warn when two or more regions beat on their own (whole-field numbers mix them).
+
+    Returns
+    -------
+    bool
+        Whether they do.
+    """
     from beatlab.results import beating_regions
 
     beating = beating_regions(regions)
     if len(beating) < 2:
-        return
+        return False
     rates = ", ".join(
         f"region {int(r.region)} at {r.beat_rate_bpm:.1f} bpm"
         if np.isfinite(r.beat_rate_bpm)
@@ -81,6 +101,7 @@ def _warn_if_mixed(regions: pd.DataFrame) -> None:
         ),
         stacklevel=3,
     )
+    return True
 
 
 @contextlib.contextmanager
@@ -175,7 +196,8 @@ def analyze(
             frames, ref, times_s=times, pixel_size_um=float(source.pixel_size_um),
             settings=settings, start_s=start_s, end_s=end_s,
         )  # fmt: skip
-        _warn_if_mixed(found.table)
+        if _warn_if_mixed(found.table):
+            maps = _no_propagation_across_regions(maps)
         summary = summarize(
             whole, frames, ref, maps=maps, n_regions=len(found.table), recording=rec,
             source=source, settings=settings, warnings=_messages(caught),

@@ -105,8 +105,23 @@ class Analysis:
         """Every warning raised while analysing (also in ``summary["warnings"]``)."""
         return list(self.summary.get("warnings", []))
 
-    def save(self, out_dir: str | os.PathLike, *, figures: bool = True) -> dict[str, Path]:
+    def save(
+        self,
+        out_dir: str | os.PathLike,
+        *,
+        figures: bool = True,
+        figure_formats: tuple[str, ...] = ("png", "svg"),
+    ) -> dict[str, Path]:
         """Write the output files into ``out_dir`` (created if needed), each atomically.
+
+        Parameters
+        ----------
+        out_dir : path-like
+            The output folder.
+        figures : bool
+            Draw the figures (each with the CSV of what it plots).
+        figure_formats : tuple of str
+            File formats of each figure.
 
         Returns
         -------
@@ -115,7 +130,7 @@ class Analysis:
         """
         from beatlab.output import save_analysis
 
-        return save_analysis(self, out_dir, figures=figures)
+        return save_analysis(self, out_dir, figures=figures, figure_formats=figure_formats)
 
     def headline(self) -> str:
         """One line for people: beats, rate and rhythm, or each region's when several beat.

@@ -398,7 +398,8 @@ QUALITY_FIELDS = (
 PROPAGATION_FIELDS = (
     _f("resolved", "bool", "bool",
        "True when a plane fitted to the onset-delay map resolves a travelling wave (see Maps "
-       "and propagation)."),
+       "and propagation); False when two or more regions beat on their own, whose onset "
+       "delays are no wave."),
     _f("speed_cm_s", "cm/s", "float",
        "Wave speed, 1 / |gradient of the fitted plane|; null unless resolved."),
     _f("direction_deg", "deg", "float",
@@ -537,8 +538,12 @@ FILES = (
     ("regions.svg", "The same figure as vector graphics."),
     ("regions_plotted.csv", "Every point drawn in regions.png (columns as trace_plotted.csv); "
                             "the label map is region_labels of maps.npz."),
+    ("report.html", "One self-contained page (figures embedded, no network access needed): "
+                    "the headline numbers, every figure, the beats table, quality, warnings, "
+                    "parameters and the research-use caution."),
 )  # fmt: skip
-"""(file name, content) for every file ``analyze`` writes; figures not with --no-figures."""
+"""(file name, content) for every file ``analyze`` writes; figures and report not with
+--no-figures."""
 
 _ROW_METADATA = ("source", "kind", "fps", "frames", "duration_s", "pixel_size_um")
 _by_name = {f.name: f for f in (*METADATA_FIELDS, *SUMMARY_FIELDS)}

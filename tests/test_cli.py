@@ -156,3 +156,54 @@ def test_bad_config_key(tmp_path):
     np.save(path, np.zeros((20, 32, 32), np.float32))
     out = _run("analyze", str(path), "--fps", "30", "--pixel-size-um", "0.5", "--config", str(cfg))
     assert out.returncode == 2 and "beats.min_snr_typo" in out.stderr
+
+
+def test_help_shows_defaults_and_explains_reconstruct(capsys):
+    assert main(["simulate", "--help"]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    for option, default in (("--duration-s", "10.0"), ("--fps", "30.0"), ("--size-px", "128")):
+        assert option in text and f"(default: {default})" in text
+    assert "(default: None)" not in text
+    assert main(["reconstruct", "--help"]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    for option in ("--reference", "--wavelength-nm", "--pixel-size-um", "--fps", "--config"):
+        # every option is explained: its help text follows its name in the option list
+        after = text.split(f"{option} ", 2)[-1]
+        assert len(after.split(" --")[0].split()) >= 3, option
+    assert "not needed" in text  # the frame rate
+
+
+def test_progress_lines_in_a_log():
+    import io
+
+    from beatlab._progress import LineProgress, progress_bar
+
+    now = [0.0]
+    log = io.StringIO()
+    with LineProgress(200, "measuring frames", stream=log, clock=lambda: now[0]) as bar:
+        for _ in range(200):
+            now[0] += 0.0625  # 12.5 s in all (exact in binary)
+            bar.update(1)
+    lines = log.getvalue().splitlines()
+    assert "\r" not in log.getvalue()
+    # silent for the first 2 s (32 frames), then one line per 10 % step, the last at 100 %
+    assert lines[0] == "beatlab: measuring frames 16 % (32 of 200 frames)"
+    assert lines[1] == "beatlab: measuring frames 20 % (40 of 200 frames)"
+    assert lines[-1] == "beatlab: measuring frames 100 % (200 of 200 frames)"
+    assert len(lines) == 10
+    # a slow stage still shows a line every 30 s between the 10 % steps
+    log = io.StringIO()
+    bar = LineProgress(1000, "finding rest frames", stream=log, clock=lambda: now[0])
+    for _ in range(50):
+        now[0] += 40.0
+        bar.update(1)
+    lines = log.getvalue().splitlines()
+    assert len(lines) == 50 and lines[-1] == "beatlab: finding rest frames 5 % (50 of 1000 frames)"
+    # quick work prints nothing; no stream: nothing at all
+    log = io.StringIO()
+    with progress_bar(total=5, desc="x", stream=log) as bar:
+        bar.update(5)
+    assert log.getvalue() == ""
+    with progress_bar(total=5, desc="x", enabled=False, stream=log) as bar:
+        bar.update(5)
+    assert log.getvalue() == ""

@@ -21,8 +21,8 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 
 import pandas as pd
-from tqdm.auto import tqdm
 
+from beatlab._progress import progress_bar
 from beatlab._version import __version__
 from beatlab.batch._stats import STANDARD_METRICS, STATISTICS_TABLES, batch_statistics
 from beatlab.batch._tables import (
@@ -62,8 +62,8 @@ _NOT_ANALYSED_ROW = {
     "warnings": "",
 }
 _BROKEN_POOL_HINT = (
-    "a worker process died: out of memory, or, when analyze_batch is called from a script, "
-    "the call is not under if __name__ == '__main__':"
+    "out of memory, a crash in a library, or, when analyze_batch is called from a script, "
+    "the call is not under if __name__ == '__main__':; the other recordings went on"
 )
 _EXCLUDED_ROW = {"status": "excluded", "error": "", "warnings": ""}
 
@@ -194,40 +194,87 @@ def _measure(row) -> str:
 
 
 def _outcome(future) -> tuple[dict, pd.DataFrame]:
-    """A finished future's (row, beats); a failure outside the analysis becomes an error row."""
+    """A finished Dask future's (row, beats); a failure outside the analysis: an error row."""
     try:
         return future.result()
-    except BrokenProcessPool as exc:
-        row = error_row(exc)
-        row["error"] += f" ({_BROKEN_POOL_HINT})"
-        return row, pd.DataFrame()
     except Exception as exc:  # a task the cluster could not run
         return error_row(exc), pd.DataFrame()
 
 
+def _died(exc: BaseException) -> tuple[dict, pd.DataFrame]:
+    """The outcome of a recording whose worker process died while analysing it."""
+    row = error_row(exc)
+    row["error"] = f"the worker process died while analysing this recording ({_BROKEN_POOL_HINT})"
+    return row, pd.DataFrame()
+
+
+def _new_pool(processes: int, threads: int) -> ProcessPoolExecutor:
+    return ProcessPoolExecutor(
+        processes,
+        mp_context=multiprocessing.get_context("spawn"),
+        initializer=init_worker,
+        initargs=(threads,),
+    )
+
+
 def _in_processes(
-    function: Callable, items: Sequence, *, processes: int, threads: int
-) -> Iterator[tuple[object, Future]]:
-    """``function(item)`` for each item in a pool of spawned processes, as they finish.
+    function: Callable,
+    items: Sequence,
+    *,
+    processes: int,
+    threads: int,
+    on_death: Callable[[BaseException], object] = _died,
+) -> Iterator[tuple[object, object]]:
+    """``(item, function(item))`` for each item, from a pool of spawned processes.
+
+    At most `processes` items are in flight at a time, so when a worker process dies (out
+    of memory, a crash in a library) the suspects are known: the pool is replaced, each
+    suspect is run again alone in a one-process pool, and only the item that kills its
+    process gets ``on_death(exc)``; every other item still gets its result.
 
     The pool's processes start during the submissions, inside :func:`pinned_environment`,
     so numpy's and OpenMP's thread pools are sized ``threads`` when they load; the
     initialiser pins OpenCV's. Leaving early (an error or an interrupt in the caller)
     cancels what has not started.
     """
-    pool = ProcessPoolExecutor(
-        processes,
-        mp_context=multiprocessing.get_context("spawn"),
-        initializer=init_worker,
-        initargs=(threads,),
-    )
-    finished = False
+    pending = list(reversed(items))  # pop() takes them in order
+    while pending:
+        suspects = yield from _run_pool(function, pending, processes=processes, threads=threads)
+        for item in suspects:  # each alone: a second death is its own
+            alone = yield from _run_pool(function, [item], processes=1, threads=threads)
+            if alone:
+                yield item, on_death(BrokenProcessPool("worker process died"))
+
+
+def _run_pool(function, pending: list, *, processes: int, threads: int):
+    """Run items from `pending` (popped) until it is empty or the pool breaks.
+
+    Yields ``(item, result)``; returns the items in flight when the pool broke.
+    """
+    pool, finished = _new_pool(processes, threads), False
+    running: dict[Future, object] = {}
     try:
         with pinned_environment(threads):  # a spawn pool starts its processes on submit
-            futures = {pool.submit(function, item): item for item in items}
-        for future in as_completed(futures):
-            yield futures[future], future
+            while pending and len(running) < processes:
+                item = pending.pop()
+                running[pool.submit(function, item)] = item
+        while running:
+            done = next(as_completed(running))
+            item = running.pop(done)
+            try:
+                result = done.result()
+            except BrokenProcessPool:
+                lost = [item, *running.values()]
+                running.clear()
+                finished = True
+                return lost
+            yield item, result
+            if pending:
+                with pinned_environment(threads):
+                    next_item = pending.pop()
+                    running[pool.submit(function, next_item)] = next_item
         finished = True
+        return []
     finally:
         pool.shutdown(wait=finished, cancel_futures=not finished)
 
@@ -239,8 +286,7 @@ def _run_local(tasks: list[AnalysisTask], *, processes: int, threads: int) -> It
         for task in tasks:
             yield task, analyze_task(task)
         return
-    for task, future in _in_processes(analyze_task, tasks, processes=processes, threads=threads):
-        yield task, _outcome(future)
+    yield from _in_processes(analyze_task, tasks, processes=processes, threads=threads)
 
 
 def _import_distributed():
@@ -417,7 +463,12 @@ def analyze_batch(
     }
     write_json(out / "batch.json", info)
     started = time.perf_counter()
-    _collect(plan, results, cache, progress=progress)
+    try:
+        _collect(plan, results, cache, progress=progress)
+    except KeyboardInterrupt:  # Ctrl-C, or SIGTERM turned into it by the command line
+        info.update(state="interrupted", finished=sum(o is not None for o in plan.outcomes))
+        write_json(out / "batch.json", info)  # the finished recordings are in the cache
+        raise
     run["seconds"] = round(time.perf_counter() - started, 3)
     recordings = recordings_table(layout.table, [row for row, _ in plan.outcomes])
     beats = beats_table(layout.table, plan.outcomes)
@@ -476,11 +527,16 @@ def illustrate(
 
 def _collect(plan: _Plan, results: Iterable, cache: ResultCache, *, progress: bool) -> None:
     """Store each result as it arrives (ok ones in the cache) and advance the progress bar."""
-    total = sum(o is None for o in plan.outcomes) + plan.cached
-    with tqdm(
-        total=total, initial=plan.cached, desc="recordings", unit="rec",
-        disable=not progress, file=sys.stderr,
-    ) as bar:  # fmt: skip
+    total = sum(o is None for o in plan.outcomes)
+    if progress:
+        print(
+            f"beatlab: {total} recordings to analyse, {plan.cached} from the cache",
+            file=sys.stderr,
+            flush=True,
+        )
+    with progress_bar(
+        total=total, desc="analysing recordings", unit="recording", enabled=progress
+    ) as bar:
         for task, (row, beats) in results:
             if row["status"] == "ok":
                 inputs = {"recording_id": task.recording_id, "path": task.path}

@@ -198,8 +198,8 @@ class SidebandFilter:
         self.workers = workers
         cy, cx = _crop_shape((ny, nx), r)
         self.scale = ny / cy
-        if edge_px == "auto":
-            edge_px = math.ceil(_EDGE_OUTPUT_PX * self.scale)
+        if edge_px == "auto":  # at most what the frame allows (small frames: a narrower edge)
+            edge_px = min(math.ceil(_EDGE_OUTPUT_PX * self.scale), max(min(ny, nx) // 4 - 1, 0))
         if int(edge_px) != edge_px or not 0 <= edge_px < min(ny, nx) // 4:
             raise ConfigError(
                 f"edge_px: must be 'auto' or an integer in 0..{min(ny, nx) // 4 - 1}, "

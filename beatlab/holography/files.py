@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
 
+from beatlab._progress import progress_bar
 from beatlab.errors import InputError
 from beatlab.settings import HolographySettings, load_settings
 
@@ -26,7 +28,7 @@ def reconstruct_file(
     path: str | os.PathLike,
     out: str | os.PathLike,
     *,
-    wavelength_nm: float,
+    wavelength_nm: float | None = None,
     pixel_size_um: float | None = None,
     fps: float | None = None,
     reference: str | os.PathLike | np.ndarray | None = None,
@@ -41,12 +43,13 @@ def reconstruct_file(
         The hologram recording (any format :func:`beatlab.open_recording` reads).
     out : path-like
         Output ``.ome.tif``, written atomically with the output pixel size and time increment.
-    wavelength_nm : float
-        Illumination wavelength in nm.
+    wavelength_nm : float, optional
+        Illumination wavelength in nm (overrides the file; needed when the file has none).
     pixel_size_um : float, optional
-        Sample-plane camera pixel size (overrides the file).
+        Sample-plane camera pixel size (overrides the file; needed when the file has none).
     fps : float, optional
-        Frame rate in Hz (overrides the file).
+        Frame rate in Hz (overrides the file). Reconstruction does not need it: when neither
+        the file nor this gives it, the output records no frame rate.
     reference : path-like or ndarray (R, Y, X), optional
         Sample-free hologram frame(s).
     holography : HolographySettings, optional
@@ -62,7 +65,9 @@ def reconstruct_file(
     Raises
     ------
     MetadataError
-        When the frame rate or the pixel size is unknown (naming the flag).
+        When the pixel size or the wavelength is unknown (naming the flag).
+    InputError
+        When the reference frames do not have the holograms' shape.
     """
     from beatlab.holography.reconstruct import OffAxisReconstructor
     from beatlab.io import open_recording, write_ome_tiff
@@ -70,13 +75,15 @@ def reconstruct_file(
     rec = open_recording(
         path, kind="hologram", fps=fps, pixel_size_um=pixel_size_um, wavelength_nm=wavelength_nm
     )
-    rec.require("fps", "pixel_size_um", "wavelength_nm")
+    rec.require("pixel_size_um", "wavelength_nm")
+    where = f"{reference}: " if isinstance(reference, (str, os.PathLike)) else ""
     if isinstance(reference, (str, os.PathLike)):
         reference = load_reference(reference)
     if reference is not None and reference.shape[-2:] != rec.shape:
+        (ry, rx), (hy, hx) = reference.shape[-2:], rec.shape
         raise InputError(
-            f"reference frames {reference.shape[-2:]} differ from the holograms "
-            f"{rec.shape}; pass sample-free frames from the same camera set-up"
+            f"{where}the reference frames are {ry} x {rx} px, the holograms {hy} x {hx} px; "
+            "pass reference=PATH with sample-free frames from the same camera set-up"
         )
     opts = (holography or load_settings().holography).fit_options()
     recon = OffAxisReconstructor.fit(
@@ -88,15 +95,24 @@ def reconstruct_file(
     )
     ny, nx = recon.output_shape
     frames = (f for _, block in rec.chunks(16) for f in block)
-    return write_ome_tiff(
-        out,
-        recon.opd_frames(frames, progress=progress),
-        shape=(rec.n_frames, ny, nx),
-        dtype=np.float32,
-        fps=rec.fps,
-        pixel_size_um=recon.output_pixel_size_um,
-        kind="opd",
-        wavelength_nm=rec.wavelength_nm,
-        times_s=rec.times_s if rec.uneven_timing else None,
-        extra={"reconstructed_from": Path(rec.source).name, "phase_sign": int(recon.sign)},
-    )
+    with progress_bar(
+        total=rec.n_frames, desc="reconstructing holograms", enabled=progress
+    ) as bar:
+        return write_ome_tiff(
+            out,
+            _counted(recon.opd_frames(frames), bar),
+            shape=(rec.n_frames, ny, nx),
+            dtype=np.float32,
+            fps=rec.fps,
+            pixel_size_um=recon.output_pixel_size_um,
+            kind="opd",
+            wavelength_nm=rec.wavelength_nm,
+            times_s=rec.times_s if rec.uneven_timing else None,
+            extra={"reconstructed_from": Path(rec.source).name, "phase_sign": int(recon.sign)},
+        )
+
+
+def _counted(frames: Iterator[np.ndarray], bar) -> Iterator[np.ndarray]:
+    for frame in frames:
+        yield frame
+        bar.update(1)

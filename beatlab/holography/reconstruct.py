@@ -247,8 +247,9 @@ class OffAxisReconstructor:
                 refs = refs[None]
             if refs.ndim != 3 or refs.shape[1:] != frame0.shape:
                 raise InputError(
-                    f"reference: expected (Y, X) or (R, Y, X) frames with (Y, X) = "
-                    f"{frame0.shape}, got shape {refs.shape}"
+                    f"the reference frames have shape {refs.shape}, the holograms "
+                    f"{frame0.shape}; pass reference=PATH with sample-free frames (Y, X) or "
+                    "(R, Y, X) from the same camera set-up"
                 )
         # a sample-free frame shows the carrier of the optics, unbiased by the cells
         sb = locate_sideband(

@@ -6,64 +6,26 @@ import math
 import os
 import re
 import warnings
-import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import numpy as np
 import tifffile
 
 from beatlab.errors import BeatlabWarning, InputError, MetadataError
+from beatlab.io._tiff_meta import (
+    check_intact,
+    interval_s,
+    parse_imagej,
+    parse_ome,
+    tifffile_complaints,
+)
 from beatlab.io.recording import KINDS, Recording
-from beatlab.io.writers import OME_NAMESPACE
 
 __all__ = ["open_recording"]
 
-_LENGTH_TO_UM = {
-    "m": 1e6,
-    "mm": 1e3,
-    "cm": 1e4,
-    "um": 1.0,
-    "µm": 1.0,
-    "μm": 1.0,
-    "micron": 1.0,
-    "microns": 1.0,
-    "micrometer": 1.0,
-    "micrometre": 1.0,
-    "nm": 1e-3,
-    "\\u00B5m": 1.0,
-}
-_TIME_TO_S = {
-    "s": 1.0,
-    "sec": 1.0,
-    "ms": 1e-3,
-    "us": 1e-6,
-    "µs": 1e-6,
-    "μs": 1e-6,
-    "min": 60.0,
-    "h": 3600.0,
-    "ns": 1e-9,
-}
 _IMAGE_SUFFIXES = (".tif", ".tiff", ".png")
 #: Frame intervals that differ from the median by more than this fraction count as uneven.
 _UNEVEN_TOLERANCE = 0.01
-
-
-def _length_um(value, unit) -> float | None:
-    if value is None:
-        return None
-    unit = "um" if unit is None else str(unit).strip()
-    factor = _LENGTH_TO_UM.get(unit, _LENGTH_TO_UM.get(unit.lower()))
-    if factor is None:
-        raise MetadataError(f"unknown length unit {unit!r} in the file; pass pixel_size_um=UM")
-    return float(value) * factor
-
-
-def _time_s(value, unit) -> float:
-    unit = "s" if unit is None else str(unit).strip()
-    factor = _TIME_TO_S.get(unit)
-    if factor is None:
-        raise MetadataError(f"unknown time unit {unit!r} in the file; pass fps=HZ")
-    return float(value) * factor
 
 
 # --------------------------------------------------------------------------------------------
@@ -166,74 +128,6 @@ class _FolderSource:
 # metadata
 
 
-def _parse_ome(xml: str) -> dict:
-    """Pixel size, time increment, plane times and beatlab annotations from OME-XML."""
-    found: dict = {}
-    try:
-        root = ET.fromstring(xml)
-    except ET.ParseError:
-        return found
-    ns = {"ome": root.tag.split("}")[0].strip("{")} if root.tag.startswith("{") else {}
-    q = (lambda tag: f"ome:{tag}") if ns else (lambda tag: tag)
-    pixels = root.find(f".//{q('Pixels')}", ns)
-    if pixels is not None:
-        a = pixels.attrib
-        if "PhysicalSizeX" in a:
-            found["pixel_size_um"] = _length_um(a["PhysicalSizeX"], a.get("PhysicalSizeXUnit"))
-            found["pixel_size_source"] = "OME PhysicalSizeX"
-            if "PhysicalSizeY" in a:
-                py = _length_um(a["PhysicalSizeY"], a.get("PhysicalSizeYUnit"))
-                if not math.isclose(py, found["pixel_size_um"], rel_tol=1e-3):
-                    found["pixel_size_y_um"] = py
-        if "TimeIncrement" in a:
-            found["frame_interval_s"] = _time_s(a["TimeIncrement"], a.get("TimeIncrementUnit"))
-            found["fps_source"] = "OME TimeIncrement"
-        planes = pixels.findall(q("Plane"), ns)
-        deltas = {}
-        for plane in planes:
-            pa = plane.attrib
-            if "DeltaT" in pa:
-                t = int(pa.get("TheT", len(deltas)))
-                deltas.setdefault(t, _time_s(pa["DeltaT"], pa.get("DeltaTUnit")))
-        if deltas:
-            found["plane_times_s"] = np.array([deltas[k] for k in sorted(deltas)])
-    for ann in root.iter():
-        if ann.tag.endswith("MapAnnotation") and ann.attrib.get("Namespace") == OME_NAMESPACE:
-            for m in ann.iter():
-                if m.tag.endswith("}M") or m.tag == "M":
-                    key, value = m.attrib.get("K"), (m.text or "").strip()
-                    if key == "kind":
-                        found["kind"] = value
-                    elif key == "wavelength_nm":
-                        found["wavelength_nm"] = float(value)
-                        found["wavelength_source"] = "OME MapAnnotation wavelength_nm"
-    return found
-
-
-def _parse_imagej(tif: tifffile.TiffFile) -> dict:
-    """Frame interval and pixel size from ImageJ metadata and resolution tags."""
-    found: dict = {}
-    ij = tif.imagej_metadata or {}
-    if ij.get("finterval"):
-        found["frame_interval_s"] = _time_s(
-            ij["finterval"], ij.get("tunit", "s").replace("sec", "s")
-        )
-        found["fps_source"] = "ImageJ finterval"
-    elif ij.get("fps"):
-        found["frame_interval_s"] = 1.0 / float(ij["fps"])
-        found["fps_source"] = "ImageJ fps"
-    # ImageJ's `spacing` is the z-step; the pixel size is in the resolution tags with `unit`.
-    page = tif.pages[0]
-    xres = page.tags.get("XResolution")
-    unit = ij.get("unit")
-    if xres is not None and unit and unit.lower() not in ("pixel", "pixels", ""):
-        num, den = xres.value
-        if num > 0:
-            found["pixel_size_um"] = _length_um(den / num, unit)
-            found["pixel_size_source"] = "ImageJ resolution tags with unit"
-    return found
-
-
 def _timing(n_frames: int, fps_flag, found: dict, source: str):
     """Return (fps, times_s, uneven) from the flag or the file."""
     if fps_flag is not None:
@@ -260,10 +154,60 @@ def _timing(n_frames: int, fps_flag, found: dict, source: str):
                 )
             found["fps_source"] = "OME Plane DeltaT"
             return 1.0 / median, times, uneven
+        if np.ptp(times) > 0 or not np.isfinite(times).all():  # all equal: placeholders
+            _bad_plane_times(times, found, source)
     interval = found.get("frame_interval_s")
-    if interval:
+    if interval is not None:
+        if not (math.isfinite(interval) and interval > 0):
+            raise MetadataError(
+                f"{source}: the file's frame rate ({found.get('fps_source')}) is not a positive "
+                "number; pass fps=HZ"
+            )
         return 1.0 / interval, np.arange(n_frames) * interval, False
     return None, None, False
+
+
+def _bad_plane_times(times: np.ndarray, found: dict, source: str) -> None:
+    """Frame times that repeat or go backwards: use the even interval, or ask for fps."""
+    k = int(np.flatnonzero(~(np.diff(times) > 0))[0]) + 1
+    what = (
+        f"frame times in the file do not increase (OME Plane DeltaT: frame {k} at "
+        f"{times[k - 1]:.4g} s, frame {k + 1} at {times[k]:.4g} s)"
+    )
+    if found.get("frame_interval_s") is None:
+        raise MetadataError(f"{source}: {what}; pass fps=HZ to take the frames as evenly spaced")
+    warnings.warn(
+        f"{source}: {what}; the even interval ({found.get('fps_source')}) is used",
+        BeatlabWarning,
+        stacklevel=4,
+    )
+
+
+def _check_file_values(found: dict, source: str) -> None:
+    """Refuse a pixel size or wavelength from the file that is not a positive number."""
+    checks = (("pixel_size", "pixel size", "um", "UM"), ("wavelength", "wavelength", "nm", "NM"))
+    for name, what, unit, flag in checks:
+        value = found.get(f"{name}_{unit}")
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise MetadataError(
+                f"{source}: the file's {what} ({found.get(f'{name}_source', 'file')}) is "
+                f"{value!r} {unit}, not a positive number; pass {name}_{unit}={flag}"
+            )
+
+
+def _check_dtype(dtype: np.dtype, path) -> None:
+    """Refuse values that are not real numbers (complex fields, booleans, text)."""
+    dtype = np.dtype(dtype)
+    if dtype.kind == "c":
+        raise InputError(
+            f"{path}: holds complex values ({dtype}); save the phase (numpy.angle) or the OPD "
+            "as real numbers"
+        )
+    if dtype.kind not in "iuf":
+        raise InputError(
+            f"{path}: holds {dtype} values, not numbers; save OPD, phase or hologram frames as "
+            "integers or floats"
+        )
 
 
 def _natural_key(path: Path):
@@ -288,15 +232,16 @@ def _squeeze_frames(shape, axes: str, path) -> tuple[tuple[int, ...], bool]:
 
 
 def _open_tiff(path: Path):
-    with tifffile.TiffFile(path) as tif:
+    with tifffile_complaints() as complaints, tifffile.TiffFile(path) as tif:
         series = tif.series[0]
+        check_intact(tif, series, path, complaints)
         shape3, _ = _squeeze_frames(series.shape, series.axes, path)
         found: dict = {}
         if tif.is_ome and tif.ome_metadata:
-            found.update(_parse_ome(tif.ome_metadata))
+            found.update(parse_ome(tif.ome_metadata))
             found["format"] = "OME-TIFF"
         elif tif.is_imagej:
-            found.update(_parse_imagej(tif))
+            found.update(parse_imagej(tif))
             found["format"] = "ImageJ TIFF"
         else:
             found["format"] = "TIFF"
@@ -314,12 +259,17 @@ def _open_tiff(path: Path):
 def _open_npy(path: Path):
     try:
         arr = np.load(path, mmap_mode="r", allow_pickle=False)
-    except ValueError as exc:
-        raise InputError(f"{path}: not a plain numeric .npy array ({exc})") from exc
+    except (ValueError, EOFError, OSError) as exc:
+        size = path.stat().st_size
+        what = "an empty file" if size == 0 else f"not a complete numeric .npy array ({exc})"
+        raise InputError(f"{path}: {what}; save the frames with numpy.save(path, frames)") from exc
     if arr.ndim == 2:
         arr = arr[None]
     if arr.ndim != 3:
-        raise InputError(f"{path}: expected an array (T, Y, X), got shape {arr.shape}")
+        raise InputError(
+            f"{path}: expected frames (T, Y, X), got shape {arr.shape}; save one grey-level "
+            "stack of frames"
+        )
     return _ArraySource(arr), {"format": "npy", "memory_mapped": True}
 
 
@@ -355,7 +305,7 @@ def _open_hdf5(path: Path, dataset: str | None):
     found: dict = {"format": "HDF5", "dataset": dataset}
     attrs = f[dataset].attrs
     if "fps" in attrs:
-        found["frame_interval_s"] = 1.0 / float(attrs["fps"])
+        found["frame_interval_s"] = interval_s(attrs["fps"])
         found["fps_source"] = "HDF5 attribute fps"
     if "pixel_size_um" in attrs:
         found["pixel_size_um"] = float(attrs["pixel_size_um"])
@@ -368,22 +318,29 @@ def _open_hdf5(path: Path, dataset: str | None):
     return _ArraySource(ds, owner=f), found
 
 
+#: Where each value was looked for, by format (the note of a "missing value" message).
 _LOOKED_FOR = {
     "OME-TIFF": {
-        "fps": "OME TimeIncrement and Plane DeltaT",
-        "pixel_size_um": "OME PhysicalSizeX",
-        "wavelength_nm": "OME MapAnnotation wavelength_nm",
+        "fps": "looked for OME TimeIncrement and Plane DeltaT",
+        "pixel_size_um": "looked for OME PhysicalSizeX",
+        "wavelength_nm": "looked for the OME MapAnnotation wavelength_nm",
     },
     "ImageJ TIFF": {
-        "fps": "ImageJ finterval",
-        "pixel_size_um": "ImageJ resolution tags with unit",
-        "wavelength_nm": "no wavelength key in ImageJ metadata",
+        "fps": "looked for ImageJ finterval and fps",
+        "pixel_size_um": "looked for ImageJ resolution tags with a unit",
+        "wavelength_nm": "ImageJ metadata has no wavelength",
     },
     "HDF5": {
-        "fps": "dataset attribute fps",
-        "pixel_size_um": "dataset attribute pixel_size_um",
-        "wavelength_nm": "dataset attribute wavelength_nm",
+        "fps": "looked for the dataset attribute fps",
+        "pixel_size_um": "looked for the dataset attribute pixel_size_um",
+        "wavelength_nm": "looked for the dataset attribute wavelength_nm",
     },
+}
+#: Formats that carry no physical metadata at all.
+_NO_METADATA = {
+    "npy": ".npy files hold no metadata",
+    "TIFF": "this TIFF has no OME or ImageJ metadata",
+    "image folder": "a folder of images holds no metadata",
 }
 
 
@@ -429,10 +386,16 @@ def open_recording(
     Raises
     ------
     InputError
-        If the path does not exist or cannot be read as a frame stack.
+        If the path does not exist or cannot be read as a frame stack: an empty, damaged or
+        truncated file, several channels, values that are not real numbers (complex, bool).
     MetadataError
-        If a given value is invalid. Missing values stay ``None`` here;
+        If a given value, or one the file records, is invalid, or the file's frame times do
+        not increase (and it records no even interval). Missing values stay ``None`` here;
         :meth:`Recording.require` raises naming the flag when a stage needs them.
+
+    Notes
+    -----
+    Infinite values are read as NaN (missing pixels), with a warning.
 
     Examples
     --------
@@ -442,7 +405,7 @@ def open_recording(
     path_str, dataset = _split_hdf5(os.fspath(path))
     p = Path(path_str)
     if not p.exists():
-        raise InputError(f"{p}: no such file or folder")
+        raise InputError(f"{p}: no such file or folder; check the path")
     try:
         if p.is_dir():
             files = sorted(
@@ -454,7 +417,10 @@ def open_recording(
                 key=_natural_key,
             )
             if not files:
-                raise InputError(f"{p}: folder holds no .tif/.tiff/.png frames")
+                raise InputError(
+                    f"{p}: the folder holds no .tif/.tiff/.png frames; pass a folder of frame "
+                    "images or a stack file"
+                )
             source, found = _FolderSource(files), {"format": "image folder"}
         elif dataset is not None or p.suffix.lower() in (".h5", ".hdf5", ".he5", ".nxs"):
             source, found = _open_hdf5(p, dataset)
@@ -467,8 +433,16 @@ def open_recording(
                 f"{p}: unsupported file type {p.suffix!r}; use OME-TIFF, TIFF, "
                 ".npy, an HDF5 dataset or a folder of TIFF/PNG frames"
             )
-    except (tifffile.TiffFileError, OSError, KeyError) as exc:
-        raise InputError(f"{p}: cannot be read as a frame stack ({exc})") from exc
+    except InputError:
+        raise
+    except (tifffile.TiffFileError, OSError, KeyError, ValueError, IndexError, EOFError) as exc:
+        empty = p.is_file() and p.stat().st_size == 0
+        detail = "the file is empty" if empty else str(exc)
+        raise InputError(
+            f"{p}: cannot be read as a frame stack ({detail}); pass an OME-TIFF, TIFF, .npy, "
+            "HDF5 dataset or frame folder"
+        ) from exc
+    _check_dtype(source.dtype, p)
     name = str(path)
     if kind is None:
         kind = found.get("kind", "opd")
@@ -478,7 +452,10 @@ def open_recording(
     if kind == "wrapped_phase":
         kind = "phase"
     if kind not in KINDS:
-        raise InputError(f"unknown kind {kind!r}; pass kind= one of {', '.join(KINDS)}")
+        origin = "the file records" if found["kind_source"] == "file" else "given"
+        raise InputError(
+            f"{name}: unknown kind {kind!r} ({origin}); pass kind=KIND, one of {', '.join(KINDS)}"
+        )
     n = source.n_frames
     rate, times, uneven = _timing(n, fps, found, name)
     if pixel_size_um is not None:
@@ -502,8 +479,11 @@ def open_recording(
             BeatlabWarning,
             stacklevel=2,
         )
+    _check_file_values(found, name)
     found["uneven_timing"] = uneven
     found["looked_for"] = _LOOKED_FOR.get(found.get("format"), {})
+    if found.get("format") in _NO_METADATA:
+        found["metadata_note"] = _NO_METADATA[found["format"]]
     found.pop("plane_times_s", None)
     return Recording(
         source=name,

@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Protocol
 
 import numpy as np
 
-from beatlab.errors import InputError, MetadataError
+from beatlab.errors import BeatlabWarning, InputError, MetadataError
 
 __all__ = ["KINDS", "FrameSource", "Recording"]
 
@@ -20,6 +21,10 @@ _FLAGS = {
     "pixel_size_um": ("pixel_size_um=UM", "sample-plane pixel size"),
     "wavelength_nm": ("wavelength_nm=NM", "wavelength"),
 }
+
+
+def _and(words: list[str]) -> str:
+    return words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
 
 
 class FrameSource(Protocol):
@@ -72,6 +77,7 @@ class Recording:
     pixel_size_um: float | None
     wavelength_nm: float | None
     metadata: dict = field(default_factory=dict, repr=False)
+    _warned_infinite: bool = field(default=False, init=False, repr=False, compare=False)
 
     @property
     def n_frames(self) -> int:
@@ -97,29 +103,41 @@ class Recording:
         return bool(self.metadata.get("uneven_timing", False))
 
     def require(self, *names: str) -> None:
-        """Raise :class:`MetadataError` naming the parameter to pass for each missing value."""
-        for name in names:
-            if getattr(self, name) is None:
-                flag, what = _FLAGS[name]
-                looked = self.metadata.get("looked_for", {}).get(name, "no metadata")
-                raise MetadataError(
-                    f"{self.source}: the {what} is unknown (looked for {looked}); pass {flag}"
-                )
+        """Raise :class:`MetadataError` naming every missing value and the parameter to pass.
+
+        All the missing values are named in one message, so one run tells everything to add.
+        """
+        missing = [name for name in names if getattr(self, name) is None]
+        if not missing:
+            return
+        whats = _and([_FLAGS[name][1] for name in missing])
+        flags = _and([_FLAGS[name][0] for name in missing])
+        verb = "is" if len(missing) == 1 else "are"
+        looked = self.metadata.get("looked_for", {})
+        notes = [looked[name] for name in missing if name in looked]
+        where = "; ".join(notes) or self.metadata.get("metadata_note", "no metadata was given")
+        raise MetadataError(f"{self.source}: the {whats} {verb} unknown ({where}); pass {flags}")
 
     def frame(self, index: int) -> np.ndarray:
-        """Return frame ``index`` (negative counts from the end) as float32 (Y, X)."""
+        """Return frame ``index`` (negative counts from the end) as float32 (Y, X).
+
+        Infinite values are returned as NaN (missing pixels), like every other reader.
+        """
         n = self.n_frames
         i = int(index)
         if i < 0:
             i += n
         if not 0 <= i < n:
             raise IndexError(f"frame {index} out of range for {n} frames")
-        return np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32)
+        return self._finite(np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32))
 
     def chunks(
         self, size: int = 64, *, start: int = 0, stop: int | None = None
     ) -> Iterator[tuple[int, np.ndarray]]:
-        """Yield ``(first_index, frames)`` with float32 arrays of at most ``size`` frames."""
+        """Yield ``(first_index, frames)`` with float32 arrays of at most ``size`` frames.
+
+        Infinite values come as NaN (missing pixels).
+        """
         if size < 1:
             raise ValueError(f"chunk size must be >= 1, got {size}")
         stop = self.n_frames if stop is None else min(int(stop), self.n_frames)
@@ -131,7 +149,25 @@ class Recording:
                     f"{self.source}: could read only {block.shape[0]} of frames "
                     f"{i}-{j - 1}; the file may be truncated"
                 )
-            yield i, block
+            yield i, self._finite(block)
+
+    def _finite(self, frames: np.ndarray) -> np.ndarray:
+        """``frames`` with +-inf set to NaN; warns once per recording."""
+        if self.dtype.kind != "f":
+            return frames
+        infinite = np.isinf(frames)
+        if not infinite.any():
+            return frames
+        if not self._warned_infinite:
+            self._warned_infinite = True
+            warnings.warn(
+                f"{self.source}: holds infinite values; they are treated as missing (NaN) pixels",
+                BeatlabWarning,
+                stacklevel=3,
+            )
+        frames = np.array(frames, dtype=np.float32)  # never write into a memory map
+        frames[infinite] = np.nan
+        return frames
 
     def close(self) -> None:
         """Release the file behind the frames (also done when the recording is collected)."""

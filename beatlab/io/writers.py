@@ -6,14 +6,23 @@ import contextlib
 import json
 import math
 import os
-import tempfile
+import secrets
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 
 import numpy as np
 import tifffile
 
-__all__ = ["atomic_path", "json_ready", "write_json", "write_ome_tiff"]
+from beatlab.errors import OutputError
+
+__all__ = [
+    "atomic_path",
+    "check_output_dir",
+    "check_output_file",
+    "json_ready",
+    "write_json",
+    "write_ome_tiff",
+]
 
 #: Namespace of the OME MapAnnotation that carries beatlab's own metadata.
 OME_NAMESPACE = "beatlab/recording"
@@ -24,19 +33,87 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it onto ``path`` on success.
 
     A crash or an exception leaves any existing file at ``path`` untouched and removes the
-    partial temporary file.
+    partial temporary file. The file gets the permissions a plain ``open`` would give it
+    (0666 less the umask), not the private 0600 of :func:`tempfile.mkstemp`.
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    os.close(fd)
-    tmp = Path(tmp)
+    tmp = _create_beside(path)
     try:
         yield tmp
         os.replace(tmp, path)
     finally:
         if tmp.exists():
             tmp.unlink()
+
+
+def _create_beside(path: Path) -> Path:
+    """Create a new empty file with an unused name beside ``path``; the umask applies."""
+    for _ in range(100):
+        tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.part")
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+        except FileExistsError:
+            continue
+        os.close(fd)
+        return tmp
+    raise FileExistsError(f"no free temporary name beside {path}")
+
+
+def _nearest_existing(path: Path) -> Path:
+    while not path.exists() and path != path.parent:
+        path = path.parent
+    return path
+
+
+def check_output_dir(path: str | os.PathLike, *, option: str = "out") -> Path:
+    """Check, before any work, that ``path`` is or can become a writable folder.
+
+    Parameters
+    ----------
+    path : path-like
+        The output folder; it need not exist yet.
+    option : str
+        The parameter that named it, for the message (``out=DIR``).
+
+    Returns
+    -------
+    Path
+        ``path``.
+
+    Raises
+    ------
+    OutputError
+        ``path`` (or a parent of it) is an existing file, or the folder cannot be written.
+    """
+    path = Path(path)
+    existing = _nearest_existing(path.absolute())
+    if not existing.is_dir():
+        where = (
+            "is an existing file" if existing == path.absolute() else f"is inside file {existing}"
+        )
+        raise OutputError(f"{path} {where}, not a folder; pass {option}=DIR naming a folder")
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise OutputError(
+            f"{path}: no permission to write in {existing}; pass {option}=DIR naming a folder "
+            "you can write to"
+        )
+    return path
+
+
+def check_output_file(path: str | os.PathLike, *, option: str = "out") -> Path:
+    """Check, before any work, that the file ``path`` can be written.
+
+    Raises
+    ------
+    OutputError
+        ``path`` is an existing folder, its folder is a file, or the folder is not writable.
+    """
+    path = Path(path)
+    if path.is_dir():
+        raise OutputError(f"{path} is a folder; pass {option}=FILE naming a file")
+    check_output_dir(path.absolute().parent, option=option)
+    return path
 
 
 def json_ready(value):
@@ -71,7 +148,7 @@ def write_ome_tiff(
     path: str | os.PathLike,
     frames: np.ndarray | Iterable[np.ndarray],
     *,
-    fps: float,
+    fps: float | None,
     pixel_size_um: float,
     kind: str = "opd",
     wavelength_nm: float | None = None,
@@ -89,8 +166,9 @@ def write_ome_tiff(
     frames : ndarray (T, Y, X) or iterable of ndarray (Y, X)
         The frames. An iterable is streamed frame by frame; then ``shape`` and ``dtype``
         are required.
-    fps : float
-        Frame rate in Hz; written as ``TimeIncrement`` in seconds.
+    fps : float or None
+        Frame rate in Hz; written as ``TimeIncrement`` in seconds. None when unknown (a
+        reconstruction of holograms whose frame rate nobody recorded): no ``TimeIncrement``.
     pixel_size_um : float
         Sample-plane pixel size in micrometres (``PhysicalSizeX/Y``).
     kind : {'opd', 'phase', 'hologram'}
@@ -109,7 +187,7 @@ def write_ome_tiff(
     Path
         ``path``.
     """
-    if not (fps > 0 and math.isfinite(fps)):
+    if fps is not None and not (fps > 0 and math.isfinite(fps)):
         raise ValueError(f"fps must be a positive number of Hz, got {fps!r}")
     if not (pixel_size_um > 0 and math.isfinite(pixel_size_um)):
         raise ValueError(f"pixel_size_um must be positive, got {pixel_size_um!r}")
@@ -129,14 +207,14 @@ def write_ome_tiff(
         annotation[str(key)] = str(value)
     metadata = {
         "axes": "TYX",
-        "TimeIncrement": 1.0 / float(fps),
-        "TimeIncrementUnit": "s",
         "PhysicalSizeX": float(pixel_size_um),
         "PhysicalSizeXUnit": "µm",
         "PhysicalSizeY": float(pixel_size_um),
         "PhysicalSizeYUnit": "µm",
         "MapAnnotation": annotation,
     }
+    if fps is not None:
+        metadata.update(TimeIncrement=1.0 / float(fps), TimeIncrementUnit="s")
     if times_s is not None:
         times_s = np.asarray(times_s, dtype=float)
         if times_s.shape != (shape[0],):

@@ -1,4 +1,9 @@
-"""Figures: one function per figure, ``plot_x(data, *, ax=None) -> Axes``."""
+"""Figures: one function per figure, ``plot_x(data, *, ax=None) -> Axes`` (or ``fig=None``).
+
+Each figure of a recording has a ``tabulate_x`` twin that lists what it plots;
+:func:`save_recording_figures` writes them all with those tables beside them. matplotlib is
+imported only when a figure is drawn.
+"""
 
 from __future__ import annotations
 
@@ -7,8 +12,31 @@ from collections.abc import Callable
 from pathlib import Path
 
 from beatlab.io.writers import atomic_path
+from beatlab.plots.average import plot_average_beat, tabulate_average_beat
+from beatlab.plots.maps import plot_maps, tabulate_maps
+from beatlab.plots.poincare import plot_poincare, poincare_sd, tabulate_poincare
+from beatlab.plots.recording import FIGURES, PLOTTED_SUFFIX, save_recording_figures
+from beatlab.plots.regions import plot_regions, tabulate_regions
+from beatlab.plots.trace import plot_trace, plot_trace_panels, tabulate_trace
 
-__all__ = ["save_figure"]
+__all__ = [
+    "FIGURES",
+    "PLOTTED_SUFFIX",
+    "plot_average_beat",
+    "plot_maps",
+    "plot_poincare",
+    "plot_regions",
+    "plot_trace",
+    "plot_trace_panels",
+    "poincare_sd",
+    "save_figure",
+    "save_recording_figures",
+    "tabulate_average_beat",
+    "tabulate_maps",
+    "tabulate_poincare",
+    "tabulate_regions",
+    "tabulate_trace",
+]
 
 
 def save_figure(

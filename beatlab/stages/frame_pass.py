@@ -20,11 +20,13 @@ Three rounds, each over a subset of the frames:
 from __future__ import annotations
 
 import os
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
-from beatlab.errors import InputError
+from beatlab._progress import progress_bar
+from beatlab.errors import BeatlabWarning, InputError
 from beatlab.settings import Settings
 from beatlab.signals.level import PlaneLeveller
 from beatlab.signals.maps import tile_grid_shape, tile_labels, tile_means
@@ -479,8 +481,6 @@ def measure_frames(
     :mod:`beatlab.signals.projection`; a pattern frame is projected onto the pattern built
     without it (leave-one-out), so its own noise does not bias it.
     """
-    from tqdm.auto import tqdm
-
     n = times_s.size
     px_um = float(source.pixel_size_um)
     rest = reference.rest
@@ -523,12 +523,8 @@ def measure_frames(
     if interpolate:
         rounds.insert(0, (drift_frames, "drift"))
     mapper = FrameMapper(workers or min(4, os.cpu_count() or 1), mode=parallel)
-    with tqdm(
-        total=sum(idx.size for idx, _ in rounds),
-        desc="analysing",
-        unit="frame",
-        disable=not progress,
-        leave=False,
+    with progress_bar(
+        total=sum(idx.size for idx, _ in rounds), desc="measuring frames", enabled=progress
     ) as bar:
         for idx, method in rounds:
             if method == "project":
@@ -566,6 +562,17 @@ def measure_frames(
     )
     segment = np.maximum(rest.segment_of(times_s), 0)
     mask_disp, mask_opd, tile_disp, label_disp = _group_traces(sums, cells, rest, segment, finite)
+    if pattern_idx.size == 0:
+        # no frame departs from rest (identical or featureless frames): nothing moved, and a
+        # projection onto the empty pattern would be 0/0
+        for trace in (mask_disp, mask_opd, tile_disp, label_disp):
+            trace[finite] = 0.0
+        warnings.warn(
+            f"{source.recording.source}: no frame differs from the rest template (identical "
+            "or featureless frames); nothing moves, so no beats can be found",
+            BeatlabWarning,
+            stacklevel=2,
+        )
     n_labels = int(reference.labels.max())
     return FrameSignals(
         displacement_um=mask_disp[:, 0] * px_um,

@@ -57,13 +57,18 @@ def open_source(
             recording, kind=kind, fps=fps, pixel_size_um=pixel_size_um, wavelength_nm=wavelength_nm
         )
     )
-    rec.require("fps", "pixel_size_um")
     inp = settings.input
     if rec.n_frames < inp.min_frames:
+        what = (
+            f"a single {rec.shape[0]} x {rec.shape[1]} px image, not a time-lapse"
+            if rec.n_frames == 1
+            else f"only {rec.n_frames} frames"
+        )
         raise InputError(
-            f"{rec.source}: only {rec.n_frames} frames; at least {inp.min_frames} are needed "
+            f"{rec.source}: {what}; analysing beats needs at least {inp.min_frames} frames "
             "(a few beats' worth)"
         )
+    rec.require("fps", "pixel_size_um")
     if rec.kind == "hologram" and isinstance(reference, (str, os.PathLike)):
         from beatlab.holography import load_reference
 

@@ -131,3 +131,26 @@ def test_scheduler_without_dask_exits_2_saying_how_to_install(batch, tmp_path, m
         "beatlab: error: --scheduler ADDRESS needs dask.distributed, which is not installed; "
         "pip install beatlab[dask]"
     )
+
+
+def test_sigterm_stops_a_batch_like_ctrl_c(tmp_path, monkeypatch, capsys):
+    # a scheduler or a closing laptop sends SIGTERM: the batch stops as on Ctrl-C (exit 130)
+    # and says where the finished recordings are and how to go on
+    import signal
+    import time
+
+    from beatlab import batch as batch_package
+    from beatlab.cli import main
+
+    def terminated(*args, **kwargs):
+        os.kill(os.getpid(), signal.SIGTERM)
+        time.sleep(5)
+        pytest.fail("SIGTERM did not stop the batch")
+
+    monkeypatch.setattr(batch_package, "analyze_batch", terminated)
+    before = signal.getsignal(signal.SIGTERM)
+    code = main(["batch", str(tmp_path / "plate.csv"), "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert code == 130
+    assert "interrupted" in err and "run the same command again" in err
+    assert signal.getsignal(signal.SIGTERM) == before  # the handler is put back

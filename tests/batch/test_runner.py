@@ -303,7 +303,7 @@ def test_compare_of_a_folder_that_is_no_batch_says_so(tmp_path):
 
 def test_pool_processes_start_with_pinned_threads():
     before = {name: os.environ.get(name) for name in THREAD_VARIABLES}
-    found = [f.result() for _, f in _in_processes(
+    found = [r for _, r in _in_processes(
         thread_settings, [THREAD_VARIABLES] * 2, processes=2, threads=1)]  # fmt: skip
     assert found == [{**dict.fromkeys(THREAD_VARIABLES, "1"), "opencv": 1}] * 2
     assert {name: os.environ.get(name) for name in THREAD_VARIABLES} == before
@@ -368,3 +368,42 @@ def test_scheduler_without_dask_says_how_to_install(plate, tmp_path, monkeypatch
     with pytest.raises(InputError, match=r"pip install beatlab\[dask\]"):
         analyze_batch(_write_layout(folder, rows[4:5]), out_dir=tmp_path,
                       scheduler="tcp://127.0.0.1:1", progress=False)  # fmt: skip
+
+
+def test_a_worker_process_that_dies_fails_only_its_own_item():
+    # the process analysing item 3 dies abruptly (os._exit, as when the kernel kills it for
+    # memory); the pool is replaced and every other item still gets its result
+    from tests.batch.crashers import square_or_die
+
+    found = dict(
+        _in_processes(square_or_die, [1, 2, 3, 4, 5, 6], processes=2, threads=1,
+                      on_death=lambda exc: "died")
+    )  # fmt: skip
+    assert found == {1: 1, 2: 4, 3: "died", 4: 16, 5: 25, 6: 36}
+
+
+def test_an_interrupted_batch_keeps_its_finished_recordings_and_resumes_identically(
+    plate, reference, tmp_path
+):
+    # Ctrl-C (or SIGTERM, which the command line turns into it) after two recordings: they
+    # stay cached, batch.json says so, and the re-run analyses only the others and ends with
+    # the tables of an uninterrupted run, byte for byte
+    folder, rows = plate
+    layout, out = _write_layout(folder, rows), tmp_path / "stopped"
+    real, calls = _worker.analyze, []
+
+    def stop_at_third(path, *args, **kwargs):
+        calls.append(os.path.basename(path))
+        if len(calls) == 3:
+            raise KeyboardInterrupt
+        return real(path, *args, **kwargs)
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(_worker, "analyze", stop_at_third)
+        with pytest.raises(KeyboardInterrupt):
+            analyze_batch(layout, out_dir=out, progress=False, **IN_PROCESS)
+    info = json.loads((out / "batch.json").read_text())
+    assert info["state"] == "interrupted" and info["finished"] == 3  # 2 analysed + excluded
+    result, again = _counted_batch(layout, out)
+    assert result.counts["cached"] == 2 and len(again) == 3
+    _same_files(reference[1], out)

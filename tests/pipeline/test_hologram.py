@@ -105,9 +105,8 @@ def test_cli_simulate_reconstruct_analyze(tmp_path):
 def test_reconstruct_needs_wavelength_and_pixel_size(tmp_path, capsys):
     path = tmp_path / "raw.npy"
     np.save(path, np.zeros((10, 64, 64), np.float32))
-    with pytest.raises(SystemExit) as exc:
-        main(["reconstruct", str(path), "--out", str(tmp_path / "o.ome.tif")])
-    assert exc.value.code == 2
+    assert main(["reconstruct", str(path), "--out", str(tmp_path / "o.ome.tif")]) == 2
+    assert "--wavelength-nm" in capsys.readouterr().err
     code = main(
         [
             "reconstruct",

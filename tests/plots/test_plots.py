@@ -1,3 +1,5 @@
+from types import SimpleNamespace
+
 import numpy as np
 import pandas as pd
 
@@ -25,11 +27,14 @@ def _data():
 def test_plot_trace_marks_every_beat():
     trace, beats = _data()
     ax = plot_trace(trace, beats)
-    lines = {line.get_label(): line for line in ax.get_lines()}
-    assert len(lines["peak"].get_xdata()) == 4
-    assert list(lines["secondary peak (EAD-like)"].get_xdata()) == [1.6]
+    lines = {line.get_gid(): line for line in ax.get_lines()}
+    assert list(lines["peak"].get_xdata()) == [0.5, 1.5, 2.5, 3.5]
+    # without peak_um in the table the peaks are marked on the drawn curve
+    np.testing.assert_allclose(lines["peak"].get_ydata(), 1.0)
+    assert list(lines["secondary_peak"].get_xdata()) == [1.6]
+    assert lines["secondary_peak"].get_label() == "secondary peak (EAD-like)"
     assert ax.get_xlabel() == "time (s)" and "µm" in ax.get_ylabel()
-    assert "60.0 bpm" in ax.get_title()
+    assert "60.0 bpm" in ax.get_title("left") + ax.get_title("center")
 
 
 def test_save_figure_writes_png_and_svg(tmp_path):
@@ -40,14 +45,30 @@ def test_save_figure_writes_png_and_svg(tmp_path):
 
 
 def test_plot_maps_three_panels():
+    # one region, a resolved wave: the delay map is drawn with its speed and direction
     maps = {
         "peak_displacement_um": np.ones((4, 4)),
-        "onset_delay_s": np.zeros((4, 4)),
+        "onset_delay_s": np.tile(np.arange(4) * 0.05, (4, 1)),
+        "beating": np.ones((4, 4), bool),
+        "assessed": np.ones((4, 4), bool),
         "beating_area_fraction": 0.5,
         "propagation": {"resolved": True, "speed_cm_s": 12.0, "direction_deg": 30.0},
     }
     template = np.zeros((32, 32))
     template[8:24, 8:24] = 100
-    fig = plot_maps(maps, template, template > 0, pixel_size_um=0.5)
-    titles = [ax.get_title() for ax in fig.axes if ax.get_title()]
-    assert "12.0 cm/s at 30°" in titles and "beating area 50 %" in titles
+    analysis = SimpleNamespace(
+        maps=maps,
+        template=template,
+        mask=template > 0,
+        beats=pd.DataFrame({"peak_s": [1.0]}),
+        regions=pd.DataFrame({"region": [1], "area_um2": [64.0], "beat_count": [1]}),
+        region_labels=(template > 0).astype(int),
+        summary={
+            "metadata": {"analysis_pixel_size_um": 0.5, "fps": 100.0},
+            "parameters": {"maps": {"tile_um": 4.0}},
+        },
+    )
+    fig = plot_maps(analysis)
+    titles = " | ".join(ax.get_title(loc) for ax in fig.axes for loc in ("left", "center"))
+    assert "12 cm/s towards 30°" in titles and "beating area 50 %" in titles
+    assert all(ax.get_xlabel() == "x (µm)" for ax in fig.axes[::2][:3] if ax.get_xlabel())

@@ -1,0 +1,139 @@
+"""Every figure of one recording, written beside the data it shows.
+
+Each figure ``<name>`` is written as ``<name>.png`` (300 dpi) and ``<name>.svg``, and beside it
+``<name>_plotted.csv``: every plotted point in one long table (columns
+:data:`beatlab.plots.style.PLOTTED_COLUMNS`: panel, series, item, x, y, value and their
+units), so a number read off a figure can be checked and a figure redrawn elsewhere.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from beatlab.errors import ConfigError
+from beatlab.io.writers import atomic_path
+from beatlab.plots.average import plot_average_beat, tabulate_average_beat
+from beatlab.plots.maps import plot_maps, tabulate_maps
+from beatlab.plots.poincare import plot_poincare, tabulate_poincare
+from beatlab.plots.regions import plot_regions, tabulate_regions
+from beatlab.plots.trace import plot_trace_panels, tabulate_trace
+
+__all__ = ["FIGURES", "PLOTTED_SUFFIX", "RecordingFigure", "save_recording_figures"]
+
+#: ``<name><PLOTTED_SUFFIX>`` is the table of what figure ``<name>`` plots.
+PLOTTED_SUFFIX = "_plotted.csv"
+
+_FORMATS = ("png", "svg", "pdf")
+
+
+@dataclass(frozen=True)
+class RecordingFigure:
+    """One figure of a recording.
+
+    Attributes
+    ----------
+    draw : callable
+        ``draw(analysis, fig)`` draws into an empty Figure.
+    tabulate : callable
+        ``tabulate(analysis)`` -> the plotted-data table.
+    size : callable
+        ``size(analysis)`` -> (width, height) in inches.
+    """
+
+    draw: Callable
+    tabulate: Callable
+    size: Callable
+
+
+def _regions_size(analysis):
+    n = len(analysis.regions)
+    return (3.8, 3.6) if n < 2 else (9.0, max(3.6, 1.3 * n + 0.8))
+
+
+FIGURES = {
+    "trace": RecordingFigure(
+        draw=lambda a, fig: plot_trace_panels(a, fig=fig),
+        tabulate=lambda a: tabulate_trace(a.trace, a.beats),
+        size=lambda a: (7.2, 5.6 if len(a.regions) > 1 else 5.4),
+    ),
+    "average_beat": RecordingFigure(
+        draw=lambda a, fig: plot_average_beat(a.average_beat, a.beats, ax=fig.add_subplot()),
+        tabulate=lambda a: tabulate_average_beat(a.average_beat, a.beats),
+        size=lambda a: (4.6, 3.4),
+    ),
+    "poincare": RecordingFigure(
+        draw=lambda a, fig: plot_poincare(a.beats["ibi_s"], ax=fig.add_subplot()),
+        tabulate=lambda a: tabulate_poincare(a.beats["ibi_s"]),
+        size=lambda a: (3.8, 4.0),
+    ),
+    "maps": RecordingFigure(
+        draw=lambda a, fig: plot_maps(a, fig=fig),
+        tabulate=tabulate_maps,
+        size=lambda a: (10.0, 3.6),
+    ),
+    "regions": RecordingFigure(
+        draw=lambda a, fig: plot_regions(a, fig=fig),
+        tabulate=tabulate_regions,
+        size=_regions_size,
+    ),
+}
+"""The figures of one recording, by file stem, in the order they are written."""
+
+
+def save_recording_figures(
+    analysis, out_dir: str | os.PathLike, *, formats: tuple[str, ...] = ("png", "svg")
+) -> dict[str, Path]:
+    """Write every figure of :data:`FIGURES` and the table of what it plots into ``out_dir``.
+
+    Parameters
+    ----------
+    analysis : beatlab.results.Analysis
+        The result of :func:`beatlab.analyze` (or :func:`beatlab.read_analysis`).
+    out_dir : path-like
+        Output folder, created if needed; every file is written atomically.
+    formats : tuple of str
+        Image formats, any of ``png`` (300 dpi), ``svg``, ``pdf``.
+
+    Returns
+    -------
+    dict
+        ``"<name>_<format>"`` -> image path and ``"<name>_plotted"`` -> CSV path, for the
+        names ``trace``, ``average_beat``, ``poincare``, ``maps``, ``regions``.
+
+    Raises
+    ------
+    ConfigError
+        An unknown format.
+    """
+    unknown = sorted(set(formats) - set(_FORMATS))
+    if unknown:
+        raise ConfigError(
+            f"figure formats {unknown} are not supported; pass formats from {list(_FORMATS)}"
+        )
+    from beatlab.plots import save_figure
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    paths: dict[str, Path] = {}
+    for name, figure in FIGURES.items():
+        table: pd.DataFrame = figure.tabulate(analysis)
+        csv = out / f"{name}{PLOTTED_SUFFIX}"
+        with atomic_path(csv) as tmp:
+            table.to_csv(tmp, index=False)
+        paths[f"{name}_plotted"] = csv
+        if formats:
+            save_figure(
+                lambda fig, figure=figure: figure.draw(analysis, fig),
+                out / f"{name}.{formats[0]}",
+                size=figure.size(analysis),
+                whole_figure=True,
+                formats=tuple(formats),
+            )
+        for fmt in formats:
+            paths[f"{name}_{fmt}"] = out / f"{name}.{fmt}"
+    return paths
