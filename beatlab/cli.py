@@ -405,11 +405,22 @@ def _analysis_folder(args) -> Path:
     return Path(stem + "_beatlab")
 
 
+def _check_replaceable(out: Path) -> None:
+    """Refuse an --out folder that holds files other than an earlier analysis."""
+    if out.is_dir() and any(out.iterdir()) and not (out / "summary.json").is_file():
+        raise OutputError(
+            f"--out {out} is a folder with other files in it; pass a new or empty folder, or "
+            "an earlier analysis folder (which is replaced)"
+        )
+
+
 def _cmd_analyze(args) -> int:
+    from beatlab.io.folders import atomic_folder
     from beatlab.io.writers import check_output_dir
     from beatlab.pipeline import analyze
 
     out = check_output_dir(_analysis_folder(args))  # before any work, not after it
+    _check_replaceable(out)
     result = analyze(
         args.path,
         args.config,
@@ -421,7 +432,8 @@ def _cmd_analyze(args) -> int:
         regions=args.regions,
         progress=True,  # a bar on a terminal, plain lines in a log
     )
-    result.save(out, figures=not args.no_figures)
+    with atomic_folder(out) as tmp:  # the folder has all of its files or none of them
+        result.save(tmp, figures=not args.no_figures)
     print(f"{args.path}: {result.headline()} -> {out}")
     return EXIT_OK
 

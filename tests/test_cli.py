@@ -207,3 +207,43 @@ def test_progress_lines_in_a_log():
     with progress_bar(total=5, desc="x", enabled=False, stream=log) as bar:
         bar.update(5)
     assert log.getvalue() == ""
+
+
+@pytest.fixture(scope="module")
+def still_movie(tmp_path_factory):
+    movie = tmp_path_factory.mktemp("still") / "still.ome.tif"
+    args = ["simulate", "--out", str(movie), "--duration-s", "3", "--size-px", "48"]
+    assert main(args) == 0
+    return movie
+
+
+def test_analysis_folder_is_written_whole_and_replaced_cleanly(still_movie, tmp_path, capsys):
+    out = tmp_path / "res"
+    assert main(["analyze", str(still_movie), "--out", str(out), "--no-figures"]) == 0
+    (out / "stale.txt").write_text("from an earlier version")
+    assert main(["analyze", str(still_movie), "--out", str(out), "--no-figures"]) == 0
+    assert not (out / "stale.txt").exists()  # replaced, not merged
+    assert [p.name for p in tmp_path.iterdir()] == ["res"]  # no temporary folder left
+
+
+def test_interrupt_while_writing_leaves_no_half_folder(still_movie, tmp_path, monkeypatch):
+    from beatlab.results import Analysis
+
+    def half_then_interrupt(self, out_dir, **kwargs):
+        (out_dir / "summary.json").write_text("{}")
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(Analysis, "save", half_then_interrupt)
+    out = tmp_path / "res"
+    assert main(["analyze", str(still_movie), "--out", str(out)]) == 130
+    assert list(tmp_path.iterdir()) == []  # nothing, rather than a folder that looks complete
+
+
+def test_out_folder_of_other_files_is_refused_before_any_work(still_movie, tmp_path, capsys):
+    out = tmp_path / "thesis"
+    out.mkdir()
+    (out / "chapter1.docx").write_text("x")
+    assert main(["analyze", str(still_movie), "--out", str(out)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("beatlab: error: --out") and "other files" in err
+    assert [p.name for p in out.iterdir()] == ["chapter1.docx"]
