@@ -304,14 +304,16 @@ def _add_simulate(sub) -> None:
     )
     s.add_argument("--fps", type=_positive, default=30.0, metavar="HZ", help="frame rate")
     s.add_argument(
-        "--size-px", type=_positive_int, default=128, metavar="N", help="frame side, pixels"
+        "--size-px",
+        type=_positive_int,
+        metavar="N",
+        help="frame side, pixels (default: 128; 256 for holograms)",
     )
     s.add_argument(
         "--pixel-size-um",
         type=_positive,
-        default=0.5,
         metavar="UM",
-        help="sample-plane pixel size",
+        help="sample-plane pixel size (default: 0.5; 0.25 for holograms)",
     )
     s.add_argument(
         "--wavelength-nm",
@@ -580,7 +582,7 @@ def _cmd_simulate(args) -> int:
     sim = simulate_recording(
         duration_s=args.duration_s,
         fps=args.fps,
-        shape_px=(args.size_px, args.size_px),
+        shape_px=None if args.size_px is None else (args.size_px, args.size_px),
         pixel_size_um=args.pixel_size_um,
         wavelength_nm=args.wavelength_nm,
         layout=args.layout,

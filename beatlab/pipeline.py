@@ -61,6 +61,36 @@ def _messages(caught: list[warnings.WarningMessage]) -> list[str]:
     ]
 
 
+def _warn_if_untrustworthy(whole, source) -> None:
+    """Warn of each quality check that fails (low snr, coarse grid): the numbers may be wrong."""
+    from beatlab.stages.summary import MIN_GRID_PX, MIN_TRUSTED_SNR, quality_checks
+
+    checks = quality_checks(
+        beat_count=len(whole.beats), snr=whole.summary["snr"], grid_shape_px=source.shape
+    )
+    if "low snr" in checks:
+        snr = whole.summary["snr"]
+        warnings.warn(
+            BeatlabWarning(
+                f"low signal-to-noise ratio ({'n/a' if snr is None else f'{snr:.1f}'}, below "
+                f"{MIN_TRUSTED_SNR:g}): beats may be missed or invented; check trace.png, and "
+                "record longer exposures, more cells or a steadier stage"
+            ),
+            stacklevel=3,
+        )
+    if "coarse grid" in checks:
+        ny, nx = source.shape
+        warnings.warn(
+            BeatlabWarning(
+                f"the analysis grid is only {nx} x {ny} px ({source.pixel_size_um:.2f} um per "
+                f"pixel, below {MIN_GRID_PX} px a side): optical flow sees too few pixels per "
+                "cell and may smooth or miss the motion; record larger frames, or holograms "
+                "with finer fringes (a wider sideband)"
+            ),
+            stacklevel=3,
+        )
+
+
 def _no_propagation_across_regions(maps: dict) -> dict:
     """Onset delays between regions that beat on their own are no propagation: unresolved."""
     prop = dict(maps["propagation"])
@@ -186,6 +216,7 @@ def analyze(
             beats=settings.beats, rhythm=settings.rhythm, start_s=start_s, end_s=end_s,
             pattern_frames=frames.pattern_frames,
         )  # fmt: skip
+        _warn_if_untrustworthy(whole, source)
         maps = build_maps(
             frames.tile_traces_um, times, grid_shape=frames.tile_grid, tile_um=frames.tile_um,
             onsets_s=whole.beats["onset_s"].to_numpy(float),

@@ -148,7 +148,9 @@ class Analysis:
             return f"{len(beating)} regions beat on their own ({'; '.join(parts)})"
         s = self.summary
         rate = _rate_text(s.get("beat_rate_bpm"))
-        return f"{s['beat_count']} beats, {rate}, rhythm {s['rhythm']}"
+        line = f"{s['beat_count']} beats, {rate}, rhythm {s['rhythm']}"
+        checks = s.get("quality", {}).get("checks")
+        return f"{line} (check: {checks})" if checks else line
 
     def to_row(self) -> dict:
         """One flat row of recording-level metrics, keyed by ``beatlab.schema.ROW_FIELDS``.

@@ -392,6 +392,12 @@ QUALITY_FIELDS = (
        "template is a single frame."),
     _f("uneven_timing", "bool", "bool",
        "True when the frame timestamps are uneven (they are then used as they are)."),
+    _f("checks", "text", "str",
+       "What to check before trusting the numbers, joined with '; ' (empty when nothing): "
+       "'low snr' when beats were found at an snr below 10 (some may be missed or invented); "
+       "'coarse grid' when the short side of the analysis grid is below 32 px (optical flow "
+       "sees too few pixels per cell: motion is smoothed and may be missed). Each also raises "
+       "a warning."),
 )  # fmt: skip
 """Keys of summary.json["quality"]."""
 

@@ -12,6 +12,8 @@ from collections.abc import Mapping
 
 import pandas as pd
 
+from beatlab.stages.summary import MIN_TRUSTED_SNR
+
 __all__ = [
     "FLAG_RULES",
     "QUALITY_COLUMNS",
@@ -31,9 +33,10 @@ FLAG_RULES = {
     "small mask": "quality_masked_fraction below 0.02: few cell pixels analysed",
     "mixed regions": "two or more regions beat on their own: whole-field metrics mix rhythms",
     "velocity unresolved": "the frame rate does not resolve some strokes (velocities null)",
+    "coarse grid": "the analysis grid is below 32 px a side: optical flow may miss motion",
 }
 _MIN_BEATS = 3
-_MIN_SNR = 10.0
+_MIN_SNR = MIN_TRUSTED_SNR
 _MAX_DRIFT_UM = 2.0
 _MIN_MASKED = 0.02
 
@@ -85,6 +88,8 @@ def quality_columns(row: Mapping, regions: pd.DataFrame) -> dict:
         flags.append("mixed regions")
     if _number(row, "quality_velocity_unresolved_beats") > 0:
         flags.append("velocity unresolved")
+    if "coarse grid" in str(row.get("quality_checks") or ""):
+        flags.append("coarse grid")
     return {
         "n_beating_regions": beating,
         "mixed": beating >= 2,

@@ -12,12 +12,47 @@ from beatlab.stages.frame_pass import FrameSignals
 from beatlab.stages.reference import Reference
 from beatlab.stages.trace import TraceResult
 
-__all__ = ["summarize"]
+__all__ = ["MIN_GRID_PX", "MIN_TRUSTED_SNR", "quality_checks", "summarize"]
+
+#: Below this SNR the beats of a beating recording may be missed or invented.
+MIN_TRUSTED_SNR = 10.0
+#: An analysis grid with a shorter side than this is too coarse for optical flow.
+MIN_GRID_PX = 32
+
+
+def quality_checks(*, beat_count: int, snr, grid_shape_px) -> list[str]:
+    """What a reader must check before trusting a recording's numbers.
+
+    Parameters
+    ----------
+    beat_count : int
+        Beats found.
+    snr : float or None
+        Median beat displacement / trace noise.
+    grid_shape_px : (int, int)
+        Shape of the analysis grid (after reconstruction and binning).
+
+    Returns
+    -------
+    list of str
+        ``"low snr"`` when beats were found at an SNR below :data:`MIN_TRUSTED_SNR` (some may
+        be missed or invented); ``"coarse grid"`` when the short side of the analysis grid
+        is below :data:`MIN_GRID_PX` px (optical flow sees too few pixels per cell: motion
+        is smoothed and may be missed).
+    """
+    checks = []
+    if beat_count > 0 and not (snr is not None and snr >= MIN_TRUSTED_SNR):
+        checks.append("low snr")
+    if min(int(n) for n in grid_shape_px) < MIN_GRID_PX:
+        checks.append("coarse grid")
+    return checks
 
 _SOURCES = ("format", "fps_source", "pixel_size_source", "wavelength_source", "kind_source")
 
 
-def _quality(trace: TraceResult, frames: FrameSignals, reference: Reference, recording) -> dict:
+def _quality(
+    trace: TraceResult, frames: FrameSignals, reference: Reference, recording, source
+) -> dict:
     rest = reference.rest
     drift_um = (frames.drift_px - frames.drift_px[0]) * frames.pixel_size_um
     finite = np.isfinite(drift_um).all(axis=1)
@@ -44,6 +79,13 @@ def _quality(trace: TraceResult, frames: FrameSignals, reference: Reference, rec
         ],
         "frame_noise_nm": frames.frame_noise_nm,
         "uneven_timing": recording.uneven_timing,
+        "checks": "; ".join(
+            quality_checks(
+                beat_count=len(trace.beats),
+                snr=trace.summary["snr"],
+                grid_shape_px=source.shape,
+            )
+        ),
     }
 
 
@@ -119,7 +161,7 @@ def summarize(
             **metrics,
             "beating_area_fraction": maps["beating_area_fraction"],
             "n_regions": int(n_regions),
-            "quality": _quality(trace, frames, reference, recording),
+            "quality": _quality(trace, frames, reference, recording, source),
             "propagation": maps["propagation"],
             "metadata": _metadata(recording, source),
             "parameters": settings.to_dict(),

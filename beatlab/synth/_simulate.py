@@ -109,8 +109,8 @@ def simulate_recording(
     *,
     duration_s=10.0,
     fps=30.0,
-    shape_px=(128, 128),
-    pixel_size_um=0.5,
+    shape_px=None,
+    pixel_size_um=None,
     wavelength_nm=632.8,
     layout="clusters",
     n_clusters=1,
@@ -152,10 +152,12 @@ def simulate_recording(
         Length in s; ``T = round(duration_s * fps)`` frames at ``t = arange(T) / fps``.
     fps : float
         Frame rate in Hz.
-    shape_px : tuple of int
-        Frame shape ``(Y, X)`` in pixels.
-    pixel_size_um : float
-        Sample-plane pixel size in um.
+    shape_px : tuple of int, optional
+        Frame shape ``(Y, X)`` in pixels. Default (128, 128); for holograms (256, 256), so
+        that the off-axis reconstruction (about a fifth of the camera's pixels a side) keeps
+        a grid fine enough for optical flow.
+    pixel_size_um : float, optional
+        Sample-plane pixel size in um. Default 0.5; for holograms 0.25 (the same 64 um field).
     wavelength_nm : float
         Illumination wavelength in nm (phase = OPD * 2 pi / wavelength).
     layout : {'clusters', 'confluent'}
@@ -266,6 +268,11 @@ def simulate_recording(
     """
     given = dict(locals())
     given.pop("rng")
+    hologram = kind == "hologram"
+    if given["shape_px"] is None:
+        given["shape_px"] = (256, 256) if hologram else (128, 128)
+    if given["pixel_size_um"] is None:
+        given["pixel_size_um"] = 0.25 if hologram else 0.5
     p = validate_arguments(given)
     seed = int(rng) if isinstance(rng, (int, np.integer)) and not isinstance(rng, bool) else None
     gen = as_generator(rng)

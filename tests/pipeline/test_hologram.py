@@ -7,6 +7,7 @@ import pytest
 import tifffile
 
 from beatlab.cli import main
+from beatlab.errors import BeatlabWarning
 from beatlab.io import open_recording
 from beatlab.pipeline import analyze
 from beatlab.synth import simulate_recording
@@ -121,3 +122,28 @@ def test_reconstruct_needs_wavelength_and_pixel_size(tmp_path, capsys):
     )
     assert code == 2
     assert "--pixel-size-um" in capsys.readouterr().err
+
+
+def test_a_grid_too_coarse_for_flow_is_flagged_not_passed_off():
+    # 128 px holograms at 0.5 um reconstruct onto about 25 x 25 px (the off-axis sideband
+    # keeps about a fifth of the camera's pixels a side): optical flow sees too few pixels
+    # per cell, which the summary, the headline and a warning must say
+    holo = simulate_recording(
+        kind="hologram", duration_s=4, fps=30, shape_px=(128, 128), pixel_size_um=0.5,
+        rate_bpm=60, noise_nm=0.5, rng=5,
+    )  # fmt: skip
+    with pytest.warns(BeatlabWarning, match="analysis grid is only"):
+        a = analyze(as_recording(holo), reference=holo.reference_frames)
+    assert min(a.summary["metadata"]["analysis_shape_px"]) < 32
+    assert "coarse grid" in a.summary["quality"]["checks"]
+    assert "(check: " in a.headline() and "coarse grid" in a.headline()
+    assert a.to_row()["quality_checks"] == a.summary["quality"]["checks"]
+
+
+def test_simulated_holograms_at_the_defaults_analyse_correctly():
+    # the simulator's defaults for holograms (256 px at 0.25 um) reconstruct onto a grid
+    # fine enough for flow: the beats of the truth, nothing flagged
+    holo = simulate_recording(kind="hologram", duration_s=5, fps=30, rate_bpm=60, rng=6)
+    a = analyze(as_recording(holo), reference=holo.reference_frames)
+    assert a.summary["beat_count"] == holo.truth["summary"]["beat_count"]
+    assert a.summary["quality"]["checks"] == ""
