@@ -66,8 +66,21 @@ def _warn_if_untrustworthy(whole, source) -> None:
     from beatlab.stages.summary import MIN_GRID_PX, MIN_TRUSTED_SNR, quality_checks
 
     checks = quality_checks(
-        beat_count=len(whole.beats), snr=whole.summary["snr"], grid_shape_px=source.shape
+        beat_count=len(whole.beats),
+        snr=whole.summary["snr"],
+        grid_shape_px=source.shape,
+        pattern_snr=whole.summary["pattern_snr"],
     )
+    if "possible missed beats" in checks:
+        warnings.warn(
+            BeatlabWarning(
+                "no beats found, yet the frames hold a contraction-like pattern (pattern snr "
+                f"{whole.summary['pattern_snr']:.1f}; frames of noise alone give about 0): a "
+                "faint culture may beat below the detection threshold; check trace.png, or "
+                "lower [beats] min_snr"
+            ),
+            stacklevel=3,
+        )
     if "low snr" in checks:
         snr = whole.summary["snr"]
         warnings.warn(

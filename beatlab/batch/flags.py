@@ -34,6 +34,7 @@ FLAG_RULES = {
     "mixed regions": "two or more regions beat on their own: whole-field metrics mix rhythms",
     "velocity unresolved": "the frame rate does not resolve some strokes (velocities null)",
     "coarse grid": "the analysis grid is below 32 px a side: optical flow may miss motion",
+    "possible missed beats": "no beats, yet a contraction-like pattern: beats may be missed",
 }
 _MIN_BEATS = 3
 _MIN_SNR = MIN_TRUSTED_SNR
@@ -88,8 +89,9 @@ def quality_columns(row: Mapping, regions: pd.DataFrame) -> dict:
         flags.append("mixed regions")
     if _number(row, "quality_velocity_unresolved_beats") > 0:
         flags.append("velocity unresolved")
-    if "coarse grid" in str(row.get("quality_checks") or ""):
-        flags.append("coarse grid")
+    for check in ("coarse grid", "possible missed beats"):
+        if check in str(row.get("quality_checks") or ""):
+            flags.append(check)
     return {
         "n_beating_regions": beating,
         "mixed": beating >= 2,

@@ -1,7 +1,8 @@
 """Figures: one function per figure, ``plot_x(data, *, ax=None) -> Axes`` (or ``fig=None``).
 
-Each figure of a recording has a ``tabulate_x`` twin that lists what it plots;
-:func:`save_recording_figures` writes them all with those tables beside them. matplotlib is
+Each figure has a ``tabulate_x`` twin that lists what it plots; :func:`save_recording_figures`
+(one recording) and :func:`save_batch_figures` (a batch folder) write them all with those
+tables beside them. matplotlib is
 imported only when a figure is drawn.
 """
 
@@ -13,7 +14,12 @@ from pathlib import Path
 
 from beatlab.io.writers import atomic_path
 from beatlab.plots.average import plot_average_beat, tabulate_average_beat
+from beatlab.plots.batch import save_batch_figures
+from beatlab.plots.dose import plot_dose_response
+from beatlab.plots.gallery import plot_gallery
+from beatlab.plots.groups import plot_metric_by_group
 from beatlab.plots.maps import plot_maps, tabulate_maps
+from beatlab.plots.plate import plot_plate
 from beatlab.plots.poincare import plot_poincare, poincare_sd, tabulate_poincare
 from beatlab.plots.recording import FIGURES, PLOTTED_SUFFIX, save_recording_figures
 from beatlab.plots.regions import plot_regions, tabulate_regions
@@ -23,12 +29,17 @@ __all__ = [
     "FIGURES",
     "PLOTTED_SUFFIX",
     "plot_average_beat",
+    "plot_dose_response",
+    "plot_gallery",
     "plot_maps",
+    "plot_metric_by_group",
+    "plot_plate",
     "plot_poincare",
     "plot_regions",
     "plot_trace",
     "plot_trace_panels",
     "poincare_sd",
+    "save_batch_figures",
     "save_figure",
     "save_recording_figures",
     "tabulate_average_beat",

@@ -56,6 +56,7 @@ class _Figure:
     draw: Callable
     size: Callable[[pd.DataFrame], tuple[float, float]]
     whole_figure: bool
+    empty: str = "nothing to plot: its table has no rows"
 
 
 def read_batch_table(path: str | os.PathLike) -> pd.DataFrame:
@@ -177,6 +178,7 @@ def _dose_figure(wells, fits, metric, skipped) -> _Figure | None:
         lambda fig: plot_dose_response(wells, fits, metric=column, fig=fig),
         size,
         whole_figure=True,
+        empty=f"no compound has a fit of {column} over 4 concentrations or more",
     )
 
 
@@ -221,6 +223,7 @@ def _gallery_figure(batch_dir: Path, seconds: float) -> _Figure:
         lambda fig: plot_gallery(batch_dir, fig=fig, seconds=seconds),
         size,
         whole_figure=True,
+        empty="no ok recording has a readable recordings/<recording_id>/trace.csv",
     )
 
 
@@ -261,6 +264,7 @@ def save_batch_figures(
     *,
     metrics: Sequence[str] | None = None,
     formats: Sequence[str] = ("png", "svg"),
+    workers: int | None = None,
 ) -> dict[str, Path]:
     """Draw every figure of a batch folder into ``batch_dir/figures``.
 
@@ -275,6 +279,9 @@ def save_batch_figures(
         :data:`beatlab.batch.STANDARD_METRICS`.
     formats : sequence of str
         Image formats, from :data:`FIGURE_FORMATS`; the first is the one returned.
+    workers : int, optional
+        Figures drawn at once, in forked processes on Linux (default: every core; 1: one
+        after the other in this process). The files are the same either way.
 
     Returns
     -------
@@ -301,8 +308,6 @@ def save_batch_figures(
     skipped the same way. Figures an earlier run listed in ``index.json`` and this run did
     not draw are removed: a stale figure would mislead. Files are written atomically.
     """
-    from beatlab.plots import save_figure
-
     batch_dir = Path(batch_dir)
     if not batch_dir.is_dir():
         raise InputError(f"{batch_dir} is not a folder; pass the --out folder of beatlab batch")
@@ -316,29 +321,70 @@ def save_batch_figures(
     skipped: dict[str, str] = {}
     written: dict[str, Path] = {}
     listing: dict[str, list[str]] = {}
-    for figure in _plan(batch_dir, metrics, info, skipped):
-        try:
-            table = figure.tabulate()
-        except InputError as exc:
-            skipped[figure.name] = str(exc)
+    plan = _plan(batch_dir, metrics, info, skipped)
+    for name, outcome in _render_all(plan, out, formats, workers=workers):
+        if isinstance(outcome, str):
+            skipped[name] = outcome
             continue
-        if table.empty:
-            skipped[figure.name] = "nothing to plot: its table has no rows"
-            continue
-        csv = out / f"{figure.name}.csv"
-        with atomic_path(csv) as tmp:
-            table.to_csv(tmp, index=False)
-        save_figure(figure.draw, out / f"{figure.name}.{formats[0]}", size=figure.size(table),
-                    whole_figure=figure.whole_figure, formats=formats)  # fmt: skip
-        written[f"{figure.name}_csv"] = csv
-        for fmt in formats:
-            written[f"{figure.name}_{fmt}"] = out / f"{figure.name}.{fmt}"
-        listing[figure.name] = [f"{figure.name}.{fmt}" for fmt in formats] + [csv.name]
+        written.update(outcome)
+        listing[name] = [f"{name}.{fmt}" for fmt in formats] + [f"{name}.csv"]
     for name, reason in skipped.items():
         logger.info("batch figure %s skipped: %s", name, reason)
     _remove_stale(out, old_index, written)
     written["index"] = write_json(out / "index.json", {"figures": listing, "skipped": skipped})
     return written
+
+
+#: The figures being drawn, for forked workers (they inherit it; closures do not pickle).
+_PLANNED: list[_Figure] = []
+
+
+def _render(job: tuple[int, Path, tuple[str, ...]]) -> tuple[str, dict[str, Path] | str]:
+    """Draw one planned figure and its table: (name, paths) or (name, reason it is skipped)."""
+    from beatlab.plots import save_figure
+
+    index, out, formats = job
+    figure = _PLANNED[index]
+    try:
+        table = figure.tabulate()
+    except InputError as exc:
+        return figure.name, str(exc)
+    if table.empty:
+        return figure.name, figure.empty
+    csv = out / f"{figure.name}.csv"
+    with atomic_path(csv) as tmp:
+        table.to_csv(tmp, index=False)
+    save_figure(figure.draw, out / f"{figure.name}.{formats[0]}", size=figure.size(table),
+                whole_figure=figure.whole_figure, formats=formats)  # fmt: skip
+    paths = {f"{figure.name}_csv": csv}
+    paths.update({f"{figure.name}_{fmt}": out / f"{figure.name}.{fmt}" for fmt in formats})
+    return figure.name, paths
+
+
+def _render_all(plan: list[_Figure], out: Path, formats, *, workers: int | None):
+    """(name, outcome) of every planned figure, in plan order, drawn by forked workers."""
+    import multiprocessing
+
+    from beatlab.stages._parallel import _opencv_single_threaded, can_fork
+
+    if workers is None:
+        workers = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1
+    jobs = [(i, out, tuple(formats)) for i in range(len(plan))]
+    _PLANNED[:] = plan
+    try:
+        if workers <= 1 or len(plan) <= 1 or not can_fork():
+            return [_render(job) for job in jobs]
+        import matplotlib
+
+        matplotlib.use("Agg", force=False)  # imported once, before the fork
+        import matplotlib.pyplot
+
+        with _opencv_single_threaded():
+            context = multiprocessing.get_context("fork")
+            with context.Pool(min(workers, len(plan))) as pool:
+                return pool.map(_render, jobs, chunksize=1)
+    finally:
+        _PLANNED.clear()
 
 
 def _read_index(folder: Path) -> dict:

@@ -71,8 +71,9 @@ def _panel_wells(wells: pd.DataFrame, fit: pd.Series, metric: str):
     used = _used(wells, metric)
     if _timepoint(fit):
         used = used[_column(used, "timepoint") == _timepoint(fit)]
-    conc = pd.to_numeric(used.get("concentration"), errors="coerce")
-    conc = pd.Series(np.nan, index=used.index) if conc is None else conc.astype(float)
+    conc = pd.Series(np.nan, index=used.index)
+    if "concentration" in used.columns:
+        conc = pd.to_numeric(used["concentration"], errors="coerce").astype(float)
     vehicle = (_column(used, "role").str.lower() == "vehicle") | (conc == 0)
     treated = used[~vehicle & (_column(used, "compound") == str(fit["compound"])) & (conc > 0)]
     controls = used[vehicle]

@@ -68,18 +68,27 @@ def choose_representatives(recordings: pd.DataFrame) -> pd.DataFrame:
     -----
     The representative is the recording with status ok and none of the :data:`TRACE_FLAGS`
     whose ``beat_rate_bpm`` is closest to the median ``beat_rate_bpm`` of all the
-    condition's recordings with status ok (an arrested recording counts at 0 bpm); on a tie,
-    the first in the table. When every ok recording is flagged, the closest of them (noted);
+    condition's recordings with status ok (an arrested recording counts at 0 bpm). The
+    median of an even count lies between two rates, so ties are common: the one with the
+    higher ``quality_snr`` wins (a missing value counts lowest), then the first in the
+    table. When every ok recording is flagged, the closest of them (noted);
     without any rate, the first ok recording (noted). ``velocity unresolved`` does not count:
     the displacement trace is unaffected. A condition is a group of
-    :func:`~beatlab.plots.groups.label_groups`: compound x concentration (x timepoint).
+    :func:`~beatlab.plots.groups.label_groups`: compound x concentration (x timepoint);
+    vehicle recordings whose layout ``condition`` differs (two protocols, say) each show
+    their own condition.
     """
     missing = [c for c in ("recording_id", "status", "beat_rate_bpm") if c not in recordings]
     if missing:
         raise InputError(f"recordings has no column {missing[0]!r}; pass recordings.csv")
-    groups = label_groups(recordings)
+    recordings = recordings.reset_index(drop=True)  # labels are positions from here on
+    groups = _vehicle_by_condition(recordings, label_groups(recordings))
     status = _column(recordings, "status")
     rate = pd.to_numeric(recordings["beat_rate_bpm"], errors="coerce").astype(float)
+    snr = np.full(len(recordings), -np.inf)
+    if "quality_snr" in recordings.columns:
+        given = pd.to_numeric(recordings["quality_snr"], errors="coerce").to_numpy(dtype=float)
+        snr = np.where(np.isfinite(given), given, -np.inf)
     flags = _column(recordings, "quality_flags").map(lambda t: {f.strip() for f in t.split(";")})
     rows = []
     for order in sorted(groups["order"].unique()):
@@ -92,7 +101,8 @@ def choose_representatives(recordings: pd.DataFrame) -> pd.DataFrame:
                "n_ok": len(ok), "note": ""}  # fmt: skip
         if rated:
             median = float(np.median(rate[rated]))
-            pick = min(clean or rated, key=lambda i: abs(rate[i] - median))  # first of ties
+            # the median of an even count lies between two rates: ties are common
+            pick = min(clean or rated, key=lambda i: (round(abs(rate[i] - median), 9), -snr[i]))
             row.update(recording_id=_column(recordings, "recording_id")[pick],
                        beat_rate_bpm=float(rate[pick]), median_rate_bpm=median)  # fmt: skip
             if not clean:
@@ -107,6 +117,24 @@ def choose_representatives(recordings: pd.DataFrame) -> pd.DataFrame:
         rows.append(row)
     return pd.DataFrame(rows, columns=["group", "order", "recording_id", "beat_rate_bpm",
                                        "median_rate_bpm", "n_ok", "note"])  # fmt: skip
+
+
+def _vehicle_by_condition(recordings: pd.DataFrame, groups: pd.DataFrame) -> pd.DataFrame:
+    """Split the vehicle group by the layout's ``condition`` when it names several."""
+    vehicle = groups["vehicle"].to_numpy(dtype=bool)
+    condition = _column(recordings, "condition").to_numpy()
+    named = list(dict.fromkeys(c for c in condition[vehicle] if c))
+    if len(named) < 2 or groups.loc[vehicle, "order"].nunique() != 1:
+        return groups
+    out = groups.copy()
+    first = int(out.loc[vehicle, "order"].iloc[0])
+    later = out["order"] > first
+    out.loc[later, "order"] += len(named) - 1
+    for k, name in enumerate(named):
+        rows = vehicle & (condition == name)
+        out.loc[rows, "group"] = name
+        out.loc[rows, "order"] = first + k
+    return out
 
 
 def _read_recordings(batch_dir: Path) -> pd.DataFrame:

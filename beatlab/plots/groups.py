@@ -45,8 +45,8 @@ _SUFFIXES = {"bpm": "_bpm", "s": "_s", "um": "_um", "nm": "_nm", "um/s": "_um_s"
              "cm/s": "_cm_s", "um^2": "_um2", "deg": "_deg", "Hz": "_hz"}  # fmt: skip
 _NAMES = {
     "beat_rate_bpm": "beat rate",
-    "duration_90_s": "contraction duration (90 %)",
-    "duration_50_s": "contraction duration (50 %)",
+    "duration_90_s": "contraction duration 90 %",
+    "duration_50_s": "contraction duration 50 %",
     "duration_90_fridericia_s": "duration 90 %, Fridericia-corrected",
     "duration_90_bazett_s": "duration 90 %, Bazett-corrected",
     "displacement_um": "displacement amplitude",
@@ -189,8 +189,9 @@ def label_groups(table: pd.DataFrame) -> pd.DataFrame:
     vehicle = (_column(table, "role").str.lower() == "vehicle").to_numpy()
     compound, condition = _column(table, "compound"), _column(table, "condition")
     unit, timepoint = _column(table, "unit").to_numpy(), _column(table, "timepoint")
-    conc = pd.to_numeric(table.get("concentration"), errors="coerce")
-    conc = np.full(len(table), np.nan) if conc is None else np.asarray(conc, dtype=float)
+    conc = np.full(len(table), np.nan)
+    if "concentration" in table.columns:
+        conc = pd.to_numeric(table["concentration"], errors="coerce").to_numpy(dtype=float)
     several_tp = timepoint[timepoint != ""].nunique() > 1
     key = (
         compound

@@ -246,7 +246,7 @@ def _marks(ax, cells: pd.DataFrame) -> list:
             handles.append(Patch(label=name, **style))
     marks = {
         "failed": ("x", 7, 1.6, "black", "failed (every field of view)"),
-        "no value": ("_", 7, 1.2, GREY, "ok, no value"),
+        "no value": ("_", 7, 1.2, GREY, "ok, no value (e.g. arrested)"),
     }
     for state, (marker, size, width, colour, name) in marks.items():
         part = cells[cells["series"] == state]

@@ -10,7 +10,7 @@ from beatlab.output import CAUTION
 from beatlab.settings import Settings
 from beatlab.stages.frame_pass import FrameSignals
 from beatlab.stages.reference import Reference
-from beatlab.stages.trace import TraceResult
+from beatlab.stages.trace import MIN_PATTERN_SNR, TraceResult
 
 __all__ = ["MIN_GRID_PX", "MIN_TRUSTED_SNR", "quality_checks", "summarize"]
 
@@ -20,7 +20,7 @@ MIN_TRUSTED_SNR = 10.0
 MIN_GRID_PX = 32
 
 
-def quality_checks(*, beat_count: int, snr, grid_shape_px) -> list[str]:
+def quality_checks(*, beat_count: int, snr, grid_shape_px, pattern_snr=None) -> list[str]:
     """What a reader must check before trusting a recording's numbers.
 
     Parameters
@@ -31,6 +31,8 @@ def quality_checks(*, beat_count: int, snr, grid_shape_px) -> list[str]:
         Median beat displacement / trace noise.
     grid_shape_px : (int, int)
         Shape of the analysis grid (after reconstruction and binning).
+    pattern_snr : float or None
+        The trace at the contraction pattern's own frames / trace noise.
 
     Returns
     -------
@@ -38,9 +40,14 @@ def quality_checks(*, beat_count: int, snr, grid_shape_px) -> list[str]:
         ``"low snr"`` when beats were found at an SNR below :data:`MIN_TRUSTED_SNR` (some may
         be missed or invented); ``"coarse grid"`` when the short side of the analysis grid
         is below :data:`MIN_GRID_PX` px (optical flow sees too few pixels per cell: motion
-        is smoothed and may be missed).
+        is smoothed and may be missed); ``"possible missed beats"`` when no beat was found
+        although the frames hold a contraction-like pattern (``pattern_snr`` at least
+        :data:`beatlab.stages.trace.MIN_PATTERN_SNR`; on frames of noise alone it stays
+        near 0): a faint culture may beat below the detection threshold.
     """
     checks = []
+    if beat_count == 0 and pattern_snr is not None and pattern_snr >= MIN_PATTERN_SNR:
+        checks.append("possible missed beats")
     if beat_count > 0 and not (snr is not None and snr >= MIN_TRUSTED_SNR):
         checks.append("low snr")
     if min(int(n) for n in grid_shape_px) < MIN_GRID_PX:
@@ -84,6 +91,7 @@ def _quality(
                 beat_count=len(trace.beats),
                 snr=trace.summary["snr"],
                 grid_shape_px=source.shape,
+                pattern_snr=trace.summary["pattern_snr"],
             )
         ),
     }

@@ -12,11 +12,15 @@ import numpy as np
 import pandas as pd
 
 from beatlab.beats import average_beat, detect_beats, estimate_noise, measure_beats
+from beatlab.errors import InputError
 from beatlab.rhythm import summarize_rhythm
 from beatlab.settings import BeatSettings, RhythmSettings, VelocitySettings
 from beatlab.signals.traces import velocity_trace, velocity_window_frames
 
-__all__ = ["MIN_PATTERN_SNR", "TraceResult", "analyze_trace"]
+__all__ = ["MIN_FRAMES", "MIN_PATTERN_SNR", "TraceResult", "analyze_trace"]
+
+#: Fewest finite frames a trace needs (its noise is estimated from differences of three).
+MIN_FRAMES = 3
 
 #: Beats are looked for only when the trace at the pattern frames stands this many noise SDs
 #: above rest: below it the "pattern" is noise (no contraction in the recording or region).
@@ -48,10 +52,40 @@ class TraceResult:
     average_beat: pd.DataFrame
 
 
+def _checked_times(times_s, shape: tuple) -> np.ndarray:
+    """Frame times as float, refused unless 1-D, finite, strictly increasing, one per frame."""
+    times = np.asarray(times_s, dtype=float)
+    if times.ndim != 1 or times.shape != tuple(shape):
+        raise InputError(
+            f"times_s has shape {times.shape} but the trace {tuple(shape)}; pass one time "
+            "per frame of a 1-D trace"
+        )
+    if not np.all(np.isfinite(times)) or np.any(np.diff(times) <= 0):
+        raise InputError("times_s must be finite and strictly increasing; pass the frame times")
+    return times
+
+
+def _usable(trace, times_s: np.ndarray, name: str) -> np.ndarray:
+    """`trace` as a float copy; refused when fewer than MIN_FRAMES frames are finite."""
+    values = np.array(trace, dtype=float)
+    if values.shape != times_s.shape:
+        raise InputError(
+            f"{name} has shape {values.shape} but times_s {times_s.shape}; pass one value per "
+            "frame"
+        )
+    finite = int(np.count_nonzero(np.isfinite(values)))
+    if finite < MIN_FRAMES:
+        raise InputError(
+            f"{name} has {finite} finite frames of {values.size}; a trace needs at least "
+            f"{MIN_FRAMES}: record more frames"
+        )
+    return values
+
+
 def _fill_gaps(trace: np.ndarray, times_s: np.ndarray) -> np.ndarray:
-    """NaN frames (dropped or empty) linearly interpolated from their neighbours."""
+    """Non-finite frames (dropped or empty) linearly interpolated from their neighbours."""
     finite = np.isfinite(trace)
-    if finite.all() or finite.sum() < 2:
+    if finite.all():
         return trace
     return np.where(finite, trace, np.interp(times_s, times_s[finite], trace[finite]))
 
@@ -73,11 +107,11 @@ def analyze_trace(
     Parameters
     ----------
     displacement_um : ndarray (T,)
-        The primary contraction trace, um (NaN frames are bridged).
+        The primary contraction trace, um (non-finite frames are bridged linearly).
     opd_change_nm : ndarray (T,)
-        The OPD-change trace, nm.
+        The OPD-change trace, nm (non-finite frames are bridged linearly).
     times_s : ndarray (T,)
-        Frame times, s.
+        Frame times, s, strictly increasing.
     velocity, beats, rhythm : settings sections
         ``[velocity]``, ``[beats]`` and ``[rhythm]``.
     start_s, end_s : float
@@ -91,15 +125,18 @@ def analyze_trace(
     Returns
     -------
     TraceResult
+
+    Raises
+    ------
+    InputError
+        If the times are not strictly increasing, one per frame, or a trace has fewer than
+        :data:`MIN_FRAMES` finite frames or holds absurd magnitudes.
     """
-    work = _fill_gaps(np.asarray(displacement_um, dtype=float), times_s)
-    vel = velocity_trace(
-        np.nan_to_num(work, nan=np.nanmedian(work)),
-        times_s,
-        window_ms=velocity.window_ms,
-        polyorder=velocity.polyorder,
-    )
-    noise = float(estimate_noise(work, method="robust"))
+    times_s = _checked_times(times_s, np.shape(displacement_um))
+    work = _fill_gaps(_usable(displacement_um, times_s, "displacement_um"), times_s)
+    opd_change_nm = _fill_gaps(_usable(opd_change_nm, times_s, "opd_change_nm"), times_s)
+    noise = float(estimate_noise(work, method="robust"))  # also refuses absurd magnitudes
+    vel = velocity_trace(work, times_s, window_ms=velocity.window_ms, polyorder=velocity.polyorder)
     pattern_snr = None
     if pattern_frames is not None and len(pattern_frames):
         at_pattern = work[np.asarray(pattern_frames, dtype=int)]

@@ -16,8 +16,8 @@ from beatlab.synth import simulate_recording, write_simulation
 LAYOUT = """path,plate,well,compound,concentration,unit,role
 A1.ome.tif,P1,A1,DMSO,,uM,vehicle
 A2.ome.tif,P1,A2,DMSO,,uM,vehicle
-A3.ome.tif,P1,A3,E4031,0.1,uM,sample
-B1.tif,P1,B1,E4031,0.1,uM,sample
+A3.ome.tif,P1,A3,CPD-7,0.1,uM,sample
+B1.tif,P1,B1,CPD-7,0.1,uM,sample
 """
 RATES_BPM = {"A1": 60.0, "A2": 64.0, "A3": 90.0}
 FILES = ("recordings", "beats", "wells", "groups", "incidence")
@@ -60,6 +60,15 @@ def test_batch_with_a_failed_recording_exits_1_and_writes_every_table(batch):
         assert (folder / f"{name}.csv").is_file(), name
     info = json.loads((folder / "batch.json").read_text())
     assert info["counts"] == {"ok": 3, "error": 1, "excluded": 0}
+    # each ok recording's own folder with its figures, the batch figures, one report
+    for rid in ("P1_A1", "P1_A2", "P1_A3"):
+        assert (folder / "recordings" / rid / "trace.png").is_file(), rid
+        assert not (folder / "recordings" / rid / "trace.svg").exists()  # PNG only in a batch
+    assert not (folder / "recordings" / "P1_B1").exists()
+    assert (folder / "figures" / "gallery.png").is_file()
+    assert (folder / "figures" / "groups_beat_rate_bpm.png").is_file()
+    report = (folder / "report.html").read_text(encoding="utf-8")
+    assert "P1_B1" in report and "Research use only" in report
 
 
 def test_second_run_takes_the_finished_recordings_from_the_cache(batch, tmp_path):
@@ -73,7 +82,8 @@ def test_second_run_takes_the_finished_recordings_from_the_cache(batch, tmp_path
 
     with pytest.MonkeyPatch.context() as patch:
         patch.setattr(_worker, "analyze", counted)
-        code, out_text, _ = _run(["batch", layout, "--out", out, "--threads", 1, "--no-progress"])
+        code, out_text, _ = _run(["batch", layout, "--out", out, "--threads", 1, "--no-progress",
+                                  "--no-figures", "--no-report"])  # fmt: skip
     assert code == 1
     assert analysed == ["B1.tif"]  # failures are not cached: retried
     assert "3 ok (3 from cache), 1 failed" in out_text

@@ -25,8 +25,9 @@ def test_dominant_region_is_measured_on_its_own(two_clusters):
         "path,well,measure\ntwo.ome.tif,A1,\ntwo.ome.tif,A2,dominant\n"
     )
     res = analyze_batch(
-        folder / "layout.csv", out_dir=folder / "out", workers=1, threads=1, progress=False
-    )
+        folder / "layout.csv", out_dir=folder / "out", workers=1, threads=1, progress=False,
+        details=False, figures=False, report=False,
+    )  # fmt: skip
     rec = res.recordings.set_index("well")
     assert rec.loc["A1", "measured_region"] == 0 and rec.loc["A2", "measured_region"] >= 1
     assert bool(rec.loc["A1", "mixed"]) and rec.loc["A1", "n_beating_regions"] == 2

@@ -66,9 +66,12 @@ class _Counter:
         return self.real(path, *args, **kwargs)
 
 
+# Tables only: the figures, folders and report of a batch are tested in test_cli_batch.py
+QUICK = {"details": False, "figures": False, "report": False}
+
 # In this process, one thread per recording: the analysis's own parallel per-frame work would
 # start processes from the test process, which other tests leave with library threads.
-IN_PROCESS = {"workers": 1, "threads": 1}
+IN_PROCESS = {"workers": 1, "threads": 1, **QUICK}
 
 
 def _counted_batch(layout, out_dir, **options):
@@ -316,7 +319,7 @@ def _numeric(table):
 def test_process_pool_gives_the_same_tables(plate, reference, tmp_path):
     folder, rows = plate
     result = analyze_batch(_write_layout(folder, rows), out_dir=tmp_path, workers=2,
-                           threads=1, progress=False)  # fmt: skip
+                           threads=1, progress=False, **QUICK)  # fmt: skip
     info = json.loads((tmp_path / "batch.json").read_text())
     assert info["run"]["executor"] == "process-pool"
     assert (info["run"]["processes"], info["run"]["threads"]) == (2, 1)
@@ -332,9 +335,14 @@ def test_dask_cluster_gives_the_same_tables(plate, reference, tmp_path):
         dashboard_address=None,
     ) as cluster:  # fmt: skip
         result = analyze_batch(_write_layout(folder, rows), out_dir=tmp_path,
-                               scheduler=cluster.scheduler_address, progress=False)  # fmt: skip
+                               scheduler=cluster.scheduler_address, progress=False,
+                               **{**QUICK, "details": True})  # fmt: skip
     info = json.loads((tmp_path / "batch.json").read_text())
     assert info["run"]["executor"] == "dask"
+    # the cluster's workers write each ok recording's own folder, whole
+    ok = result.recordings.loc[result.recordings["status"] == "ok", "recording_id"]
+    for rid in ok:
+        assert (tmp_path / "recordings" / rid / "summary.json").is_file(), rid
     expected = reference[0].recordings
     pd.testing.assert_frame_equal(_numeric(result.recordings), _numeric(expected),
                                   check_exact=True)  # fmt: skip

@@ -122,6 +122,14 @@ def test_groups_put_the_vehicle_first_then_rising_concentration():
     assert groups["block"].tolist()[1:] == ["cmpdX (nM)"] * 4
 
 
+def test_groups_of_a_layout_with_conditions_only():
+    wells = pd.DataFrame({"condition": ["paced", "control", "paced"],
+                          "role": ["sample", "vehicle", "sample"]})  # fmt: skip
+    groups = label_groups(wells)
+    assert groups["group"].tolist() == ["paced", "vehicle", "paced"]
+    assert groups["order"].tolist() == [1, 0, 1]
+
+
 def test_groups_split_by_timepoint_when_there_are_several():
     wells = _wells().iloc[[1, 5]].copy()
     wells = pd.concat([wells.assign(timepoint="pre"), wells.assign(timepoint="post")])
@@ -330,6 +338,9 @@ def test_plate_from_recordings_averages_fields_of_view_and_needs_a_plate():
     assert cells.loc["A1", "value"] == 65.0 and cells.loc["A1", "n_fov_failed"] == 1
     assert cells.loc["B2", "series"] == "failed" and cells.loc["C3", "series"] == "excluded"
     assert len(cells) == 24
+    ax = plot_plate(recordings, metric="beat_rate_bpm")
+    partly = next(line for line in ax.get_lines() if line.get_gid() == "partly failed")
+    assert partly.get_xdata()[0] == pytest.approx(1.32) and partly.get_ydata()[0] < 1
     with pytest.raises(InputError, match="pass plate="):
         tabulate_plate(_wells(), metric="beat_rate_bpm")
 
@@ -368,9 +379,12 @@ def test_representative_is_closest_to_the_median_rate_among_unflagged_ok_recordi
     assert list(chosen["order"]) == [0, 1, 2, 3]
 
 
-def test_representative_ties_go_to_the_first_and_flagged_ones_are_noted():
+def test_representative_ties_go_to_the_higher_snr_then_the_first_and_flags_are_noted():
     recordings = _recordings().iloc[:2].copy()  # 60 and 64: median 62, both 2 away
     assert choose_representatives(recordings)["recording_id"].tolist() == ["P1_A1"]
+    recordings["quality_snr"] = [np.nan, 12.0]  # no snr (no beats found) counts lowest
+    assert choose_representatives(recordings)["recording_id"].tolist() == ["P1_A2"]
+    recordings = recordings.drop(columns="quality_snr")
     recordings["quality_flags"] = ["drift", "few beats; low snr"]
     chosen = choose_representatives(recordings).iloc[0]
     assert chosen["recording_id"] == "P1_A1" and chosen["note"].endswith("drift")
@@ -501,3 +515,20 @@ def test_save_batch_figures_checks_its_arguments(tmp_path):
         save_batch_figures(tmp_path, formats=("gif",))
     with pytest.raises(InputError, match="list of names"):
         save_batch_figures(tmp_path, metrics="beat_rate_bpm")
+
+
+def test_gallery_shows_each_vehicle_condition_on_its_own():
+    # two protocols' vehicle wells are two conditions a reader wants side by side
+    from beatlab.plots.gallery import choose_representatives
+
+    recordings = pd.DataFrame(
+        {"recording_id": ["a", "b", "c", "d"], "status": ["ok"] * 4,
+         "beat_rate_bpm": [60.0, 46.0, 61.0, 90.0], "role": ["vehicle"] * 3 + ["sample"],
+         "condition": ["P-mono vehicle", "P-aggr vehicle", "P-mono vehicle", "drug"],
+         "compound": ["DMSO", "DMSO", "DMSO", "X"], "concentration": ["", "", "", "1"],
+         "unit": ["", "", "", "uM"]}
+    )  # fmt: skip
+    chosen = choose_representatives(recordings)
+    assert list(chosen["group"][:2]) == ["P-mono vehicle", "P-aggr vehicle"]
+    assert list(chosen["recording_id"]) == ["a", "b", "d"]  # a tie at the median: the first
+    assert list(chosen["order"]) == sorted(chosen["order"])

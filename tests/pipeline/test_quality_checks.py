@@ -1,0 +1,42 @@
+"""Quality checks: what a reader must check before trusting a recording's numbers."""
+
+import pytest
+
+from beatlab.errors import BeatlabWarning
+from beatlab.pipeline import analyze
+from beatlab.stages.summary import MIN_GRID_PX, MIN_TRUSTED_SNR, quality_checks
+from beatlab.synth import simulate_recording
+from tests.pipeline.helpers import as_recording
+
+
+def test_each_check_and_its_threshold():
+    ok = dict(beat_count=10, snr=MIN_TRUSTED_SNR, grid_shape_px=(MIN_GRID_PX, 400))
+    assert quality_checks(**ok) == []
+    assert quality_checks(**{**ok, "snr": MIN_TRUSTED_SNR - 0.1}) == ["low snr"]
+    assert quality_checks(**{**ok, "snr": None}) == ["low snr"]
+    assert quality_checks(**{**ok, "grid_shape_px": (MIN_GRID_PX - 1, 400)}) == ["coarse grid"]
+    quiet = dict(beat_count=0, snr=None, grid_shape_px=(128, 128))
+    assert quality_checks(**quiet, pattern_snr=0.4) == []  # noise alone: about 0
+    assert quality_checks(**quiet, pattern_snr=3.2) == ["possible missed beats"]
+
+
+def test_a_faint_culture_below_the_threshold_is_not_called_quiescent_silently():
+    # 0.6 % strain on 64 px at 1.5 nm noise: the beats stay below the detection threshold,
+    # but the frames hold the contraction pattern (pattern snr 3.2, noise alone gives ~0)
+    sim = simulate_recording(
+        duration_s=6, fps=20, shape_px=(64, 64), rate_bpm=60, strain=0.006, noise_nm=1.5,
+        rng=3,
+    )  # fmt: skip
+    with pytest.warns(BeatlabWarning, match="contraction-like pattern"):
+        a = analyze(as_recording(sim))
+    assert a.summary["beat_count"] == 0
+    assert a.summary["quality"]["checks"] == "possible missed beats"
+    assert a.headline().endswith("(check: possible missed beats)")
+
+
+def test_a_quiescent_culture_is_not_flagged():
+    sim = simulate_recording(
+        duration_s=6, fps=20, shape_px=(64, 64), beat_times_s=[], noise_nm=1.5, rng=3
+    )
+    a = analyze(as_recording(sim))  # the suite turns any warning into an error
+    assert a.summary["beat_count"] == 0 and a.summary["quality"]["checks"] == ""
