@@ -44,7 +44,7 @@ from beatlab.batch._worker import (
 )
 from beatlab.batch.cache import ResultCache, decode_frame, encode_frame, recording_key
 from beatlab.batch.layout import Layout, read_layout
-from beatlab.errors import InputError
+from beatlab.errors import BeatlabWarning, InputError
 from beatlab.io.folders import child_folder
 from beatlab.io.writers import write_json
 from beatlab.output import CAUTION
@@ -514,14 +514,18 @@ def illustrate(
 
             made.update(save_batch_figures(out, metrics=metrics))
         except Exception as exc:  # the tables stand without their figures
-            warnings.warn(f"batch figures not drawn: {describe_error(exc)}", stacklevel=2)
+            warnings.warn(
+                BeatlabWarning(f"batch figures not drawn: {describe_error(exc)}"), stacklevel=2
+            )
     if report:
         try:
             from beatlab.report import build_batch_report
 
             made["report"] = build_batch_report(out)
         except Exception as exc:  # the tables stand without their report
-            warnings.warn(f"report.html not written: {describe_error(exc)}", stacklevel=2)
+            warnings.warn(
+                BeatlabWarning(f"report.html not written: {describe_error(exc)}"), stacklevel=2
+            )
     return made
 
 

@@ -61,7 +61,14 @@ def _caption(title: str, files: list[str], prefix: str) -> Html:
     return text + Html("Plotted data: no data file beside the figure.")
 
 
-def recording_figures(folder: str | os.PathLike, *, prefix: str = "", subject: str = "") -> Html:
+def recording_figures(
+    folder: str | os.PathLike,
+    *,
+    prefix: str = "",
+    subject: str = "",
+    stems: tuple[str, ...] | None = None,
+    density: int = 2,
+) -> Html:
     """The figures of one ``analyze`` output folder, in :data:`RECORDING_FIGURES` order.
 
     Parameters
@@ -72,6 +79,10 @@ def recording_figures(folder: str | os.PathLike, *, prefix: str = "", subject: s
         Written before file names in captions (e.g. ``recordings/P1_A1/``).
     subject : str
         Added to each image's alternative text (the recording's id).
+    stems : tuple of str, optional
+        Only these figures (default: every PNG in the folder).
+    density : int
+        Embedded pixels per shown pixel (1 keeps a plate's report small).
 
     Returns
     -------
@@ -79,7 +90,7 @@ def recording_figures(folder: str | os.PathLike, *, prefix: str = "", subject: s
         A grid of figures; empty when the folder holds none.
     """
     folder = Path(folder)
-    pngs = {p.stem: p for p in _pngs(folder)}
+    pngs = {p.stem: p for p in _pngs(folder) if stems is None or p.stem in stems}
     order = [s for s in RECORDING_FIGURES if s in pngs] + [
         s for s in pngs if s not in RECORDING_FIGURES
     ]
@@ -90,7 +101,7 @@ def recording_figures(folder: str | os.PathLike, *, prefix: str = "", subject: s
         )
         alt = f"{description} ({subject})" if subject else description
         caption = _caption(description, _data_files(pngs[stem], defaults), prefix)
-        items.append(figure(pngs[stem], alt=alt, caption=caption))
+        items.append(figure(pngs[stem], alt=alt, caption=caption, density=density))
     return element("div", join(items), cls="figures") if items else Html("")
 
 

@@ -48,6 +48,10 @@ _BATCH_COLUMNS = {
 _RESULT_COLUMNS = {f.name for f in ROW_FIELDS} | _BATCH_COLUMNS
 
 
+#: Figures of each recording's section in a batch report (all are in its folder).
+RECORDING_SECTION_FIGURES = ("trace", "average_beat")
+
+
 @dataclass
 class _Batch:
     folder: Path
@@ -208,8 +212,11 @@ def _recording_entry(batch: _Batch, rid: str, row: dict, layout: list[tuple]) ->
         inner.append(element("ul", join(element("li", w) for w in warnings), cls="note"))
     name = safe_name(rid)
     if name is not None and (batch.folder / "recordings" / name).is_dir():
+        # the trace and the average beat, on screen density: a plate's report stays small;
+        # every figure is in the recording's folder
         inner.append(recording_figures(batch.folder / "recordings" / name,
-                                       prefix=f"recordings/{name}/", subject=rid))  # fmt: skip
+                                       prefix=f"recordings/{name}/", subject=rid,
+                                       stems=RECORDING_SECTION_FIGURES, density=1))  # fmt: skip
     body = element("div", join(inner), cls="inner")
     return element("details", element("summary", summary) + body, cls="block recording")
 

@@ -66,6 +66,10 @@ def batch_report(plate):
     return batch_dir, path, path.read_text(encoding="utf-8")
 
 
+def _png_width(data: bytes) -> int:
+    return int.from_bytes(data[16:20], "big")  # the IHDR width (PNG specification, 11.2.2)
+
+
 # --- the batch report --------------------------------------------------------------------
 
 
@@ -75,10 +79,19 @@ def test_batch_report_is_one_file_with_embedded_figures(batch_report):
     assert not list(batch_dir.glob(".report.html.*"))  # the atomic write left nothing behind
     parsed = _assert_self_contained(text)
     images = parsed.named("img")
-    pngs = [*(batch_dir / "figures").glob("*.png"), *(batch_dir / "recordings").glob("*/*.png")]
-    assert len(images) == len(pngs) >= 4
-    embedded = {base64.b64decode(img["src"][len(PNG_PREFIX) :]) for img in images}
-    assert embedded == {p.read_bytes() for p in pngs}
+    # every batch figure, and each recording's trace and average beat (the rest of its
+    # figures stay in its folder)
+    pngs = [
+        *(batch_dir / "figures").glob("*.png"),
+        *(batch_dir / "recordings").glob("*/trace.png"),
+        *(batch_dir / "recordings").glob("*/average_beat.png"),
+    ]
+    assert len(images) == len(pngs) >= 3
+    embedded = [base64.b64decode(img["src"][len(PNG_PREFIX) :]) for img in images]
+    assert all(data.startswith(b"\x89PNG\r\n\x1a\n") for data in embedded)
+    # shown at their size on paper (100 px per inch of a 300 dpi figure)
+    shown = sorted(int(img["width"]) for img in images)
+    assert shown == sorted(min(1000, round(_png_width(p.read_bytes()) / 3)) for p in pngs)
     assert all(img["alt"].strip() for img in images)
     # each figure's caption names the CSV of its plotted data (or says there is none)
     assert "figures/groups_beat_rate_bpm.csv" in text
@@ -299,4 +312,30 @@ def test_render_escapes_text_and_attributes_but_keeps_markup():
     assert tag == (
         '<span title="&quot; onmouseover=&quot;alert(1)">'
         "&lt;script&gt;alert(1)&lt;/script&gt;</span>"
+    )
+
+
+def test_large_figures_are_embedded_downsampled_at_their_display_size(tmp_path):
+    # a 300 dpi figure 7 inches wide (2100 px) shows 700 px wide on screen and is embedded
+    # at 2 px per shown pixel (1400 px): a plate's report stays small
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from beatlab.report._html import embed_png
+
+    fig, ax = plt.subplots(figsize=(7, 3))
+    ax.plot([0, 1, 2], [0, 1, 0])
+    fig.savefig(tmp_path / "big.png", dpi=300)
+    plt.close(fig)
+    original = (tmp_path / "big.png").read_bytes()
+    assert _png_width(original) == 2100
+    tag = str(embed_png(tmp_path / "big.png", alt="x"))
+    assert 'width="700"' in tag
+    data = base64.b64decode(tag.split('src="')[1].split('"')[0][len(PNG_PREFIX) :])
+    assert _png_width(data) == 1400
+    one = str(embed_png(tmp_path / "big.png", alt="x", density=1))
+    assert (
+        _png_width(base64.b64decode(one.split('src="')[1].split('"')[0][len(PNG_PREFIX) :])) == 700
     )
