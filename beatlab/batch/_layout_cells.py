@@ -83,7 +83,7 @@ class Problems:
         """All problems, one per line, in row order, under a one-line heading."""
         items = sorted(self._items, key=lambda item: item[0])
         count = f"{len(items)} problem" + ("s" if len(items) > 1 else "")
-        lines = [f"row {row}, column {column}: {text}" for row, column, text in items]
+        lines = [f"row {row}, column {column or '(blank)'}: {text}" for row, column, text in items]
         return f"the layout has {count}; fix each and run again:\n  " + "\n  ".join(lines)
 
 

@@ -317,6 +317,24 @@ def _resolve(text: str, base_dir: Path) -> str:
     return os.path.abspath(base_dir / Path(file_part).expanduser()) + dataset
 
 
+def _unusable(text: str, row: int, column: str, problems: Problems) -> bool:
+    """Record a path cell that cannot name a file at all (NUL, unknown ``~user``)."""
+    if "\x00" in text:
+        problems.add(row, column, f"{text!r} holds a NUL character; retype the path")
+        return True
+    try:
+        Path(text).expanduser()
+    except RuntimeError:  # "~name" of no known user
+        problems.add(
+            row,
+            column,
+            f"{text!r} starts with ~ but no home folder is known for it; write the path in "
+            "full or relative to the layout's folder",
+        )
+        return True
+    return False
+
+
 def _exists(resolved: str) -> bool:
     match = _HDF5.match(resolved)
     return os.path.exists(match.group(1) if match else resolved)
@@ -341,6 +359,8 @@ def _expand_paths(table: pd.DataFrame, *, base_dir: Path, problems: Problems) ->
         given, row, check = record["path"], record["layout_row"], not record["exclude"]
         record["path_as_given"] = given
         for name in PATH_COLUMNS[1:]:
+            if record.get(name) and _unusable(record[name], row, name, problems):
+                continue
             if record.get(name):
                 record[name] = _resolve(record[name], base_dir)
                 if check and not _exists(record[name]):
@@ -352,6 +372,9 @@ def _expand_paths(table: pd.DataFrame, *, base_dir: Path, problems: Problems) ->
                     )
         if not given:
             problems.add(row, "path", "blank; name the recording's file or delete the row")
+            records.append(record)
+            continue
+        if _unusable(given, row, "path", problems):
             records.append(record)
             continue
         resolved = _resolve(given, base_dir)

@@ -332,7 +332,9 @@ def plot_dose_response(wells: pd.DataFrame, fits: pd.DataFrame, *, metric: str, 
     if normalised:
         y = np.append(y, 0.0)
     if y.size:
-        pad = 0.06 * max(float(np.ptp(y)), 1e-9)
+        span = float(np.ptp(y))
+        # identical values (every well at 0, say): a readable range, not one of 1e-11
+        pad = 0.06 * span if span > 1e-6 * max(1.0, float(np.abs(y).max())) else 0.1
         for _, left, _ in panels:
             left.set_ylim(y.min() - pad, y.max() + pad)
     label = metric_label(metric, normalization=_normalization(wells, metric))

@@ -88,7 +88,11 @@ def group_by_columns(wells: pd.DataFrame, groups: pd.DataFrame | None) -> list[s
 
 
 def group_label(row, by: Sequence[str]) -> str:
-    """A group's readable label, e.g. ``drug E4031 0.1 uM`` (the unit after the concentration).
+    """A group's readable label, e.g. ``BL-101 0.3 uM`` or ``P-mono vehicle (DMSO)``.
+
+    The compound with its concentration and unit; the layout's condition leads when it says
+    more than they do (a condition that repeats them is not written twice); a concentration
+    of 0 (the vehicle) is left out; several timepoints add `` · <timepoint>``.
 
     Parameters
     ----------
@@ -101,13 +105,29 @@ def group_label(row, by: Sequence[str]) -> str:
     -------
     str
     """
-    parts = []
-    for column in by:
-        text = _key_text(row[column])
-        if text and column == "concentration" and not is_missing(row.get("unit")):
-            text = f"{text} {row['unit']}"
-        parts.append(text)
-    return " ".join(p for p in parts if p) or "all wells"
+    texts = {column: _key_text(row[column]) for column in by}
+    conc = texts.get("concentration", "")
+    if conc == "0":
+        conc = ""
+    elif conc and not is_missing(row.get("unit")):
+        conc = f"{conc} {row['unit']}"
+    other = " ".join(p for p in (texts.get("compound", ""), conc) if p)
+    condition = texts.get("condition", "")
+    if condition and other:
+        label = condition if other in condition else f"{condition} ({other})"
+    else:
+        label = condition or other
+    if texts.get("timepoint"):
+        label = f"{label} · {texts['timepoint']}" if label else texts["timepoint"]
+    return label or "all wells"
+
+
+def _group_order(part: pd.DataFrame, key: tuple, by: Sequence[str]) -> tuple:
+    """Vehicle groups first, then by compound, concentration (as numbers), condition."""
+    vehicle = "role" in part.columns and (part["role"].astype(str).str.lower() == "vehicle").any()
+    rank = {"compound": 0, "concentration": 1, "condition": 2, "timepoint": 3}
+    ordered = tuple(v for _, v in sorted(zip(by, key, strict=True), key=lambda cv: rank[cv[0]]))
+    return (not vehicle, _sort_key(ordered))
 
 
 def _sort_key(key: tuple) -> tuple:
@@ -128,12 +148,27 @@ def _p_lookup(groups: pd.DataFrame | None, by: list[str]) -> tuple[dict, str, li
 
 
 def _mean_sd(values: pd.Series) -> tuple[str, int]:
+    """``mean ± SD``: the mean to 3 significant digits, the SD to the same decimals (or to
+    its first significant digit when it is smaller), so both read at one precision."""
     numbers = values.map(as_float).dropna()
     if numbers.empty:
         return MISSING, 0
-    sd = numbers.std(ddof=1) if len(numbers) > 1 else math.nan
-    text = format_number(numbers.mean())
-    return (f"{text} ± {format_number(sd)}" if not math.isnan(sd) else text), len(numbers)
+    mean = float(numbers.mean())
+    sd = float(numbers.std(ddof=1)) if len(numbers) > 1 else math.nan
+    decimals = _decimals(mean, 3)
+    if math.isnan(sd):
+        return format_number(mean), len(numbers)
+    if sd > 0:
+        decimals = max(decimals, _decimals(sd, 1))
+    decimals = min(decimals, 6)
+    return f"{mean:.{decimals}f} ± {sd:.{decimals}f}", len(numbers)
+
+
+def _decimals(value: float, significant: int) -> int:
+    """Decimals that show `value` to `significant` digits (0 for large values)."""
+    if value == 0 or not math.isfinite(value):
+        return 0
+    return max(0, significant - 1 - math.floor(math.log10(abs(value))))
 
 
 def key_metrics(wells: pd.DataFrame | None, groups: pd.DataFrame | None, *, note: str) -> Html:
@@ -159,30 +194,32 @@ def key_metrics(wells: pd.DataFrame | None, groups: pd.DataFrame | None, *, note
     if ok.empty or not metrics:
         return _note("No per-group table: no well was analysed successfully.")
     by = group_by_columns(ok, groups)
-    lookup, control, tests = _p_lookup(groups, by)
+    lookup, _, tests = _p_lookup(groups, by)
     keyed = ok.assign(_key=[tuple(_key_text(r[c]) for c in by) for _, r in ok.iterrows()])
     rows = []
     for key, part in keyed.groupby("_key", sort=False):
         label = group_label(part.iloc[0], by)
-        cells = [element("strong", label) if label == control else label, str(len(part))]
+        order = _group_order(part, key, by)
+        is_control = not order[0]
+        cells = [element("strong", label) if is_control else label, str(len(part))]
         for metric in metrics:
             text, n = _mean_sd(part[metric])
-            sub = "control" if label == control else ""
+            sub = "control" if is_control else ""
             if (key, metric) in lookup:
                 sub = f"p_adj {format_p(lookup[(key, metric)])}"
             if 0 < n < len(part):
                 sub = f"{sub} · n {n}" if sub else f"n {n}"
             cells.append(Html(render_cell(text, sub)))
-        rows.append((label != control, _sort_key(key), cells))
-    rows.sort(key=lambda r: (r[0], r[1]))
+        rows.append((order, cells))
+    rows.sort(key=lambda r: r[0])
     headers = ["Group", "Wells", *(column_header(m) for m in metrics)]
     titles = [", ".join(by) or None, "n_wells", *metrics]
-    body = table(headers, [r[2] for r in rows], numeric=range(1, len(headers)), titles=titles)
+    body = table(headers, [r[1] for r in rows], numeric=range(1, len(headers)), titles=titles)
     explain = "Mean ± SD over wells (fields of view averaged per well; wells.csv)."
     if tests:
         explain += (
-            f" p_adj: {', '.join(tests)} test of each group against the control "
-            f"{control or '(none)'} on the normalised well values (groups.csv)."
+            f" p_adj: {', '.join(tests)} test of each group against the control (the "
+            "vehicle wells, in bold) on the normalised well values (groups.csv)."
         )
         compared = {metric for _, metric in lookup}
         untested = [metric_label(m) for m in metrics if m not in compared]

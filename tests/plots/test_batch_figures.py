@@ -532,3 +532,30 @@ def test_gallery_shows_each_vehicle_condition_on_its_own():
     assert list(chosen["group"][:2]) == ["P-mono vehicle", "P-aggr vehicle"]
     assert list(chosen["recording_id"]) == ["a", "b", "d"]  # a tie at the median: the first
     assert list(chosen["order"]) == sorted(chosen["order"])
+
+
+def test_dose_response_of_identical_values_has_a_readable_scale(tmp_path):
+    # every well at 0 (no irregular beats anywhere): the axis spans a readable range, not
+    # one of 1e-11 with an offset label
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from beatlab.plots.dose import plot_dose_response
+
+    conc = [0, 0, 0.1, 0.1, 0.3, 0.3, 1, 1, 3, 3]
+    wells = pd.DataFrame(
+        {"plate": "P1", "well": [f"A{i + 1}" for i in range(10)], "status": "ok",
+         "role": ["vehicle"] * 2 + ["sample"] * 8, "compound": ["DMSO"] * 2 + ["X"] * 8,
+         "concentration": conc, "unit": "uM", "irregular_fraction": 0.0,
+         "irregular_fraction_norm": 0.0}
+    )  # fmt: skip
+    fits = pd.DataFrame(
+        {"compound": ["X"], "metric": ["irregular_fraction_norm"], "fit": ["flat response"],
+         "n_concentrations": [4], "n": [10], "unit": ["uM"]}
+    )  # fmt: skip
+    fig = plot_dose_response(wells, fits, metric="irregular_fraction_norm")
+    low, high = fig.axes[0].get_ylim()
+    assert high - low > 0.1
+    plt.close(fig)

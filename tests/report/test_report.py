@@ -119,8 +119,10 @@ def test_group_table_holds_mean_sd_and_p_adj_of_the_wells(batch_report):
     ok = wells[wells["status"] == "ok"]
     for condition in ("vehicle", "drug"):
         rates = ok.loc[ok["condition"] == condition, "beat_rate_bpm"].to_numpy()
-        expected = f"{format_number(rates.mean())} ± {format_number(np.std(rates, ddof=1))}"
-        assert expected in text, condition
+        mean, sd = rates.mean(), np.std(rates, ddof=1)
+        # the mean to 3 significant digits, the SD to the same decimals (or its first digit)
+        decimals = max(2 - int(np.floor(np.log10(abs(mean)))), -int(np.floor(np.log10(sd))), 0)
+        assert f"{mean:.{decimals}f} ± {sd:.{decimals}f}" in text, condition
     groups = pd.read_csv(batch_dir / "groups.csv")
     p_adj = groups.loc[groups["metric"] == "beat_rate_bpm_norm", "p_adj"].iloc[0]
     assert f"p_adj {format_p(p_adj)}" in text
@@ -339,3 +341,17 @@ def test_large_figures_are_embedded_downsampled_at_their_display_size(tmp_path):
     assert (
         _png_width(base64.b64decode(one.split('src="')[1].split('"')[0][len(PNG_PREFIX) :])) == 700
     )
+
+
+def test_group_labels_say_each_thing_once():
+    from beatlab.report._batch_tables import group_label
+
+    by = ["condition", "compound", "concentration"]
+    row = {"condition": "BL-101 0.3 uM", "compound": "BL-101", "concentration": 0.3,
+           "unit": "uM"}  # fmt: skip
+    assert group_label(row, by) == "BL-101 0.3 uM"  # not "BL-101 0.3 uM BL-101 0.3 uM"
+    vehicle = {"condition": "P-mono vehicle", "compound": "DMSO", "concentration": 0,
+               "unit": ""}  # fmt: skip
+    assert group_label(vehicle, by) == "P-mono vehicle (DMSO)"  # no concentration 0
+    bare = {"condition": "", "compound": "X", "concentration": 1, "unit": "nM"}
+    assert group_label(bare, by) == "X 1 nM"
