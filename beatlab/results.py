@@ -48,6 +48,7 @@ def beating_regions(regions: pd.DataFrame) -> pd.DataFrame:
 def _rate_text(rate) -> str:
     return "n/a" if rate is None or not np.isfinite(float(rate)) else f"{float(rate):.1f} bpm"
 
+
 #: Arrays of ``maps.npz`` that are not maps.
 _IMAGES = {"mask": "mask", "template_nm": "template", "region_labels": "region_labels"}
 #: Scalars and dicts of ``Analysis.maps`` that live in ``summary.json``.

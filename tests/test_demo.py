@@ -62,9 +62,7 @@ def test_demo_refuses_a_folder_of_other_files(tmp_path):
 
 @pytest.mark.slow
 def test_demo_end_to_end_on_small_recordings(tmp_path):
-    run = run_demo(
-        tmp_path / "demo", quiet=True, recording={"shape_px": 48, "duration_s": 5.0}
-    )
+    run = run_demo(tmp_path / "demo", quiet=True, recording={"shape_px": 48, "duration_s": 5.0})
     counts = run.batch.counts
     assert (counts["ok"], counts["error"], counts["excluded"]) == (29, 0, 1)
     assert run.report.is_file() and run.report.stat().st_size > 10_000

@@ -54,6 +54,7 @@ def quality_checks(*, beat_count: int, snr, grid_shape_px, pattern_snr=None) -> 
         checks.append("coarse grid")
     return checks
 
+
 _SOURCES = ("format", "fps_source", "pixel_size_source", "wavelength_source", "kind_source")
 
 
