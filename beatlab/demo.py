@@ -167,6 +167,7 @@ def run_demo(
     workers: int | None = None,
     quiet: bool = False,
     recording: Mapping | None = None,
+    figures: bool = True,
 ) -> DemoRun:
     """Simulate the demo experiment, analyse it as a batch and write its report.
 
@@ -182,6 +183,8 @@ def run_demo(
     recording : mapping, optional
         Overrides of the scenario's ``[recording]`` section (``shape_px``, ``duration_s``,
         ``fps``, ...), e.g. smaller recordings for a quick check.
+    figures : bool
+        Draw the figures (the report is written either way).
 
     Returns
     -------
@@ -226,6 +229,7 @@ def run_demo(
         config=folder / "config.toml",
         workers=workers,
         progress=not quiet,
+        figures=figures,
     )
     seconds = {
         "simulate": round(simulated - started, 1),

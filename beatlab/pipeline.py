@@ -61,7 +61,7 @@ def _messages(caught: list[warnings.WarningMessage]) -> list[str]:
     ]
 
 
-def _warn_if_untrustworthy(whole, source) -> None:
+def _warn_if_untrustworthy(whole, source, pattern_frames) -> None:
     """Warn of each quality check that fails (low snr, coarse grid): the numbers may be wrong."""
     from beatlab.stages.summary import MIN_GRID_PX, MIN_TRUSTED_SNR, quality_checks
 
@@ -70,6 +70,7 @@ def _warn_if_untrustworthy(whole, source) -> None:
         snr=whole.summary["snr"],
         grid_shape_px=source.shape,
         pattern_snr=whole.summary["pattern_snr"],
+        pattern_frames=pattern_frames,
     )
     if "possible missed beats" in checks:
         warnings.warn(
@@ -229,7 +230,7 @@ def analyze(
             beats=settings.beats, rhythm=settings.rhythm, start_s=start_s, end_s=end_s,
             pattern_frames=frames.pattern_frames,
         )  # fmt: skip
-        _warn_if_untrustworthy(whole, source)
+        _warn_if_untrustworthy(whole, source, frames.pattern_frames)
         maps = build_maps(
             frames.tile_traces_um, times, grid_shape=frames.tile_grid, tile_um=frames.tile_um,
             onsets_s=whole.beats["onset_s"].to_numpy(float),

@@ -394,12 +394,13 @@ QUALITY_FIELDS = (
        "True when the frame timestamps are uneven (they are then used as they are)."),
     _f("checks", "text", "str",
        "What to check before trusting the numbers, joined with '; ' (empty when nothing): "
-       "'low snr' when beats were found at an snr below 10 (some may be missed or invented); "
+       "'low snr' when beats were found at an snr below 6 (some may be missed or invented); "
        "'coarse grid' when the short side of the analysis grid is below 32 px (optical flow "
        "sees too few pixels per cell: motion is smoothed and may be missed); 'possible missed "
        "beats' when no beat was found although pattern_snr is at least 3 (frames of noise "
-       "alone give about 0: a faint culture may beat below the detection threshold). Each "
-       "also raises a warning."),
+       "alone give about 0) and the pattern's frames fall in 3 or more separate episodes (a "
+       "drift gives one): a faint culture may beat below the detection threshold. Each also "
+       "raises a warning."),
 )  # fmt: skip
 """Keys of summary.json["quality"]."""
 

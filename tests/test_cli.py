@@ -161,8 +161,9 @@ def test_bad_config_key(tmp_path):
 def test_help_shows_defaults_and_explains_reconstruct(capsys):
     assert main(["simulate", "--help"]) == 0
     text = " ".join(capsys.readouterr().out.split())
-    for option, default in (("--duration-s", "10.0"), ("--fps", "30.0"), ("--size-px", "128")):
+    for option, default in (("--duration-s", "10.0"), ("--fps", "30.0")):
         assert option in text and f"(default: {default})" in text
+    assert "(default: 128; 256 for holograms)" in text  # --size-px
     assert "(default: None)" not in text
     assert main(["reconstruct", "--help"]) == 0
     text = " ".join(capsys.readouterr().out.split())

@@ -66,6 +66,14 @@ _WELL = re.compile(r"^([A-Pa-p])0*([1-9][0-9]?)$")
 _MAX_WELL_COLUMN = 24
 
 
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+def _one_line(text: str) -> str:
+    """``text`` with its control characters escaped as Python writes them (``\\n``)."""
+    return _CONTROL.sub(lambda match: repr(match.group())[1:-1], text)
+
+
 class Problems:
     """Problems found in a layout, each tied to a spreadsheet row and a column."""
 
@@ -80,10 +88,17 @@ class Problems:
         return bool(self._items)
 
     def message(self) -> str:
-        """All problems, one per line, in row order, under a one-line heading."""
+        """All problems, one per line, in row order, under a one-line heading.
+
+        Control characters that cells or paths carry (a line break inside a quoted cell) are
+        shown escaped (``\\r``), so that each problem stays on its own line.
+        """
         items = sorted(self._items, key=lambda item: item[0])
         count = f"{len(items)} problem" + ("s" if len(items) > 1 else "")
-        lines = [f"row {row}, column {column or '(blank)'}: {text}" for row, column, text in items]
+        lines = [
+            _one_line(f"row {row}, column {column or '(blank)'}: {text}")
+            for row, column, text in items
+        ]
         return f"the layout has {count}; fix each and run again:\n  " + "\n  ".join(lines)
 
 

@@ -12,8 +12,6 @@ from collections.abc import Mapping
 
 import pandas as pd
 
-from beatlab.stages.summary import MIN_TRUSTED_SNR
-
 __all__ = [
     "FLAG_RULES",
     "QUALITY_COLUMNS",
@@ -37,7 +35,7 @@ FLAG_RULES = {
     "possible missed beats": "no beats, yet a contraction-like pattern: beats may be missed",
 }
 _MIN_BEATS = 3
-_MIN_SNR = MIN_TRUSTED_SNR
+_MIN_SNR = 10.0  # noisy landmarks; below MIN_TRUSTED_SNR beats themselves are in doubt
 _MAX_DRIFT_UM = 2.0
 _MIN_MASKED = 0.02
 

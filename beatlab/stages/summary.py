@@ -12,15 +12,38 @@ from beatlab.stages.frame_pass import FrameSignals
 from beatlab.stages.reference import Reference
 from beatlab.stages.trace import MIN_PATTERN_SNR, TraceResult
 
-__all__ = ["MIN_GRID_PX", "MIN_TRUSTED_SNR", "quality_checks", "summarize"]
+__all__ = [
+    "MIN_EPISODES",
+    "MIN_GRID_PX",
+    "MIN_TRUSTED_SNR",
+    "contraction_episodes",
+    "quality_checks",
+    "summarize",
+]
 
 #: Below this SNR the beats of a beating recording may be missed or invented.
-MIN_TRUSTED_SNR = 10.0
+MIN_TRUSTED_SNR = 6.0
 #: An analysis grid with a shorter side than this is too coarse for optical flow.
 MIN_GRID_PX = 32
+#: A pattern built in this many separate episodes or more recurs, as beats do.
+MIN_EPISODES = 3
 
 
-def quality_checks(*, beat_count: int, snr, grid_shape_px, pattern_snr=None) -> list[str]:
+def contraction_episodes(pattern_frames, *, gap_frames: int = 2) -> int:
+    """Separate runs of the pattern's frames (consecutive up to `gap_frames` apart).
+
+    Beats, however faint, give one run per beat; a slow drift, which also builds a
+    pattern, gives one run at an end of the recording.
+    """
+    frames = np.sort(np.asarray(pattern_frames, dtype=int).ravel())
+    if frames.size == 0:
+        return 0
+    return 1 + int(np.sum(np.diff(frames) > gap_frames))
+
+
+def quality_checks(
+    *, beat_count: int, snr, grid_shape_px, pattern_snr=None, pattern_frames=()
+) -> list[str]:
     """What a reader must check before trusting a recording's numbers.
 
     Parameters
@@ -33,6 +56,8 @@ def quality_checks(*, beat_count: int, snr, grid_shape_px, pattern_snr=None) -> 
         Shape of the analysis grid (after reconstruction and binning).
     pattern_snr : float or None
         The trace at the contraction pattern's own frames / trace noise.
+    pattern_frames : array_like of int
+        The frames that built the contraction pattern.
 
     Returns
     -------
@@ -43,10 +68,12 @@ def quality_checks(*, beat_count: int, snr, grid_shape_px, pattern_snr=None) -> 
         is smoothed and may be missed); ``"possible missed beats"`` when no beat was found
         although the frames hold a contraction-like pattern (``pattern_snr`` at least
         :data:`beatlab.stages.trace.MIN_PATTERN_SNR`; on frames of noise alone it stays
-        near 0): a faint culture may beat below the detection threshold.
+        near 0) built in :data:`MIN_EPISODES` separate episodes or more (a drift builds
+        one): a faint culture may beat below the detection threshold.
     """
     checks = []
-    if beat_count == 0 and pattern_snr is not None and pattern_snr >= MIN_PATTERN_SNR:
+    strong = pattern_snr is not None and pattern_snr >= MIN_PATTERN_SNR
+    if beat_count == 0 and strong and contraction_episodes(pattern_frames) >= MIN_EPISODES:
         checks.append("possible missed beats")
     if beat_count > 0 and not (snr is not None and snr >= MIN_TRUSTED_SNR):
         checks.append("low snr")
@@ -93,6 +120,7 @@ def _quality(
                 snr=trace.summary["snr"],
                 grid_shape_px=source.shape,
                 pattern_snr=trace.summary["pattern_snr"],
+                pattern_frames=frames.pattern_frames,
             )
         ),
     }
