@@ -52,7 +52,14 @@ def refine_peaks(smooth, idx, radius):
 
 
 def parabola_vertices(values, times, idx):
-    """Vertex of the parabola through samples i - 1, i, i + 1 at their actual times."""
+    """Vertex of the parabola through samples i - 1, i, i + 1 at their actual times.
+
+    The vertex is kept within half the shorter of the two sample intervals around sample i.
+    On even sampling the vertex of a maximum always lies there (nothing changes); on very
+    uneven sampling the parabola overshoots far beyond the samples (its vertex can stand
+    well before the level crossings of the rise, at nearly twice the highest sample), and
+    the bound keeps it where the samples put the maximum.
+    """
     peak_s = times[idx].astype(float)
     peak_val = values[idx].astype(float)
     inner = (idx > 0) & (idx < values.size - 1)
@@ -67,7 +74,8 @@ def parabola_vertices(values, times, idx):
         if a >= 0:
             continue
         b = d01 + a * (t1 - t0)
-        shift = float(np.clip(-b / (2 * a), t0, t2))
+        reach = 0.5 * min(t1 - t0, t2 - t1)
+        shift = float(np.clip(-b / (2 * a), -reach, reach))
         peak_s[k] = times[i] + shift
         peak_val[k] = y1 + b * shift + a * shift**2
     return peak_s, peak_val

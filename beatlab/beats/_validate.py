@@ -5,6 +5,7 @@ import numpy as np
 from beatlab.errors import InputError
 
 __all__ = [
+    "MAX_MAGNITUDE",
     "as_peaks",
     "as_times",
     "as_trace",
@@ -13,9 +14,17 @@ __all__ = [
     "check_positive",
 ]
 
+#: Largest |value| a trace may hold: the beat measures square and divide trace values, which
+#: overflows float64 near 1e154; far above any trace in a physical unit (um, nm, um/s).
+MAX_MAGNITUDE = 1e100
+
 
 def as_trace(trace, *, name="trace", allow_nan=False):
-    """Return `trace` as a new 1-D float64 array, or raise InputError naming `name`."""
+    """Return `trace` as a new 1-D float64 array, or raise InputError naming `name`.
+
+    Values must be finite (unless `allow_nan`, which admits NaN and infinity) and at most
+    :data:`MAX_MAGNITUDE` in magnitude.
+    """
     values = np.array(trace, dtype=np.float64, copy=True)
     if values.ndim != 1:
         raise InputError(
@@ -28,6 +37,13 @@ def as_trace(trace, *, name="trace", allow_nan=False):
                 f"{name} contains {bad} NaN or infinite values of {values.size}; "
                 "interpolate or drop those frames before beat analysis"
             )
+    finite = values[np.isfinite(values)]
+    largest = float(np.max(np.abs(finite))) if finite.size else 0.0
+    if largest > MAX_MAGNITUDE:
+        raise InputError(
+            f"{name} holds values up to {largest:.3g} in magnitude, beyond {MAX_MAGNITUDE:.0e} "
+            "where the beat measures overflow; express it in a unit that keeps it smaller"
+        )
     return values
 
 

@@ -1,5 +1,7 @@
 """Beat detection on a single-peaked contraction trace."""
 
+import warnings
+
 import numpy as np
 from scipy.signal import find_peaks, peak_prominences
 
@@ -164,8 +166,8 @@ def detect_beats(
     inner = np.isin(candidates, interior)
     if np.any(inner):
         peaks_in = candidates[inner]
-        _, left_base, short_base = peak_prominences(smooth, peaks_in, wlen=2 * half_rise + 1)
-        _, _, right_base = peak_prominences(smooth, peaks_in, wlen=2 * half_fall + 1)
+        _, left_base, short_base = _prominences(smooth, peaks_in, 2 * half_rise + 1)
+        _, _, right_base = _prominences(smooth, peaks_in, 2 * half_fall + 1)
         rise[inner] = smooth[peaks_in] - smooth[left_base]
         fall[inner] = smooth[peaks_in] - smooth[right_base]
         fall_short[inner] = smooth[peaks_in] - smooth[short_base]
@@ -196,6 +198,17 @@ def detect_beats(
 
     chosen = _enforce_interval(candidates[keep], strength[keep], times, 60.0 / max_rate_bpm)
     return _snap_to_raw_maximum(values, chosen, max(1, round(smooth_s / dt)))
+
+
+def _prominences(smooth, peaks, wlen):
+    """``scipy.signal.peak_prominences`` without its warning about zero prominences.
+
+    A plateau cut by the window (a flat trace smoothed into ripple) has prominence 0: a
+    valid answer here, which the noise gate then rejects.
+    """
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="some peaks have a prominence of 0")
+        return peak_prominences(smooth, peaks, wlen=wlen)
 
 
 def _edge_cut(smooth, candidates, half):

@@ -1,6 +1,6 @@
 """Per-beat landmarks and features of the primary contraction trace (beats.csv)."""
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -225,8 +225,9 @@ def measure_beats(
     36:1627; Cleveland 1979, J Am Stat Assoc 74:829).
 
     Peak: with ``'linear'``, the vertex of the parabola through the three samples around the
-    maximum, at their actual times. With ``'cubic'``, that vertex on the upsampled smoothed
-    trace; a symmetric smoother rounds an abrupt turn (a rise ending into an exponential
+    maximum, at their actual times (kept within half the shorter of the two intervals, which
+    only matters on very uneven sampling). With ``'cubic'``, that vertex on the upsampled
+    smoothed trace; a symmetric smoother rounds an abrupt turn (a rise ending into an exponential
     decay), which moves that maximum towards the flatter side (-8.7 ms for a 150 ms
     half-cosine rise into a 120 ms exponential decay, at 15-100 fps). With
     ``peak_model='kink'`` the frames above 30 % of the amplitude within 90 ms of the peak are
@@ -283,6 +284,7 @@ def measure_beats(
         baseline_smooth_s=check_non_negative(baseline_smooth_s, "baseline_smooth_s"),
     )
     marks = _landmark_crossings(curves, top, hysteresis_sd * curves.sigma, hysteresis_fraction)
+    top = _bracket_peaks(top, marks)
 
     start = np.where(np.isfinite(marks["onset"]), marks["onset"], curves.tl[top.lowest])
     stop = np.where(np.isfinite(marks["end"]), marks["end"], curves.tl[marks["bound"]])
@@ -501,6 +503,19 @@ def _peaks_and_baselines(curves, *, kink, window_s, min_samples, rest_sd, baseli
             c.values, c.times, c.smooth_frames, peak_s, peak_val, baseline, noise_sd=c.noise_sd
         )
     return _Top(peak_s, peak_val, baseline, lowest, peak_val - baseline)
+
+
+def _bracket_peaks(top, marks):
+    """Peak times moved, where needed, between their own upstroke and downstroke crossings.
+
+    The crossings are searched before and after the peak's sample, but the sub-sample vertex
+    may lie on either side of it; on a beat of two or three samples, or on very uneven
+    sampling, it can then pass the 10 % or 50 % crossing by a fraction of an interval. The
+    peak is put back at that crossing, so onset <= peak <= end and the durations stay >= 0.
+    """
+    low = np.fmax(marks["onset"], marks["up50"])  # fmax, fmin: a NaN crossing binds nothing
+    high = np.fmin(marks["end"], marks["down50"])
+    return replace(top, peak_s=np.fmin(np.fmax(top.peak_s, low), high))
 
 
 def _landmark_crossings(curves, top, band, hysteresis_fraction):

@@ -26,12 +26,14 @@ def _half_width(times, bandwidth_s):
 
 
 def _weights(offset_s, offset_samples, bandwidth_s):
+    """Gaussian weights cut at three bandwidths; the nearest neighbours keep a floor.
+
+    `offset_samples` (int or array broadcast against `offset_s`) is the offset in samples.
+    """
     scaled = offset_s / bandwidth_s
     weights = np.exp(-0.5 * scaled**2)
     weights[np.abs(scaled) > _CUTOFF_SD] = 0.0
-    if abs(offset_samples) <= 1:
-        weights = np.maximum(weights, _MIN_WEIGHT)
-    return weights
+    return np.where(np.abs(offset_samples) <= 1, np.maximum(weights, _MIN_WEIGHT), weights)
 
 
 def _moments(values, times, bandwidth_s, max_power):
@@ -195,9 +197,7 @@ def noise_gain(sample_interval_s, *, bandwidth_s, kind="local_quadratic"):
     half = int(np.ceil(_CUTOFF_SD * bandwidth_s / dt) + 1)
     offsets = np.arange(-half, half + 1)
     x = offsets * dt
-    w = np.concatenate(
-        [_weights(x[k : k + 1], int(offsets[k]), bandwidth_s) for k in range(offsets.size)]
-    )
+    w = _weights(x, offsets, bandwidth_s)
     if kind == "gaussian":
         kernel = w / w.sum()
     else:

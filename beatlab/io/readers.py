@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 import os
 import re
+import struct
+import tokenize
 import warnings
 from pathlib import Path
 
@@ -22,6 +24,23 @@ from beatlab.io._tiff_meta import (
 from beatlab.io.recording import KINDS, Recording
 
 __all__ = ["open_recording"]
+
+#: What reading libraries raise on a damaged or truncated file (tifffile, numpy's header
+#: parser, struct unpacking of garbage, sizes read from garbage): a clean InputError.
+DAMAGED_FILE_ERRORS = (
+    tifffile.TiffFileError,
+    OSError,
+    KeyError,
+    ValueError,
+    IndexError,
+    EOFError,
+    TypeError,
+    RuntimeError,
+    ZeroDivisionError,
+    MemoryError,
+    struct.error,
+    tokenize.TokenError,
+)
 
 _IMAGE_SUFFIXES = (".tif", ".tiff", ".png")
 #: Frame intervals that differ from the median by more than this fraction count as uneven.
@@ -261,7 +280,8 @@ def _open_npy(path: Path):
         arr = np.load(path, mmap_mode="r", allow_pickle=False)
     except (ValueError, EOFError, OSError) as exc:
         size = path.stat().st_size
-        what = "an empty file" if size == 0 else f"not a complete numeric .npy array ({exc})"
+        detail = " ".join(str(exc).split())[:200]  # numpy's text spans several lines
+        what = "an empty file" if size == 0 else f"not a complete numeric .npy array ({detail})"
         raise InputError(f"{path}: {what}; save the frames with numpy.save(path, frames)") from exc
     if arr.ndim == 2:
         arr = arr[None]
@@ -435,9 +455,10 @@ def open_recording(
             )
     except InputError:
         raise
-    except (tifffile.TiffFileError, OSError, KeyError, ValueError, IndexError, EOFError) as exc:
+    except DAMAGED_FILE_ERRORS as exc:
         empty = p.is_file() and p.stat().st_size == 0
-        detail = "the file is empty" if empty else str(exc)
+        text = " ".join(str(exc).split())[:200] or type(exc).__name__
+        detail = "the file is empty" if empty else text  # one line, whatever the library says
         raise InputError(
             f"{p}: cannot be read as a frame stack ({detail}); pass an OME-TIFF, TIFF, .npy, "
             "HDF5 dataset or frame folder"

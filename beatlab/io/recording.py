@@ -143,13 +143,26 @@ class Recording:
         stop = self.n_frames if stop is None else min(int(stop), self.n_frames)
         for i in range(int(start), stop, size):
             j = min(i + size, stop)
-            block = np.asarray(self.frames.read(i, j), dtype=np.float32)
+            block = self._read(i, j)
             if block.shape[0] != j - i:
                 raise InputError(
                     f"{self.source}: could read only {block.shape[0]} of frames "
                     f"{i}-{j - 1}; the file may be truncated"
                 )
             yield i, self._finite(block)
+
+    def _read(self, i: int, j: int) -> np.ndarray:
+        """Frames ``i:j`` as float32; a damaged file gives an InputError, not a library's."""
+        from beatlab.io.readers import DAMAGED_FILE_ERRORS
+
+        try:
+            return np.asarray(self.frames.read(i, j), dtype=np.float32)
+        except DAMAGED_FILE_ERRORS as exc:
+            detail = " ".join(str(exc).split()) or type(exc).__name__
+            raise InputError(
+                f"{self.source}: frames {i}-{j - 1} cannot be read ({detail[:200]}); the file "
+                "is damaged or truncated: export it again"
+            ) from None
 
     def _finite(self, frames: np.ndarray) -> np.ndarray:
         """``frames`` with +-inf set to NaN; warns once per recording."""

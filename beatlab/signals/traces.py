@@ -71,5 +71,10 @@ def velocity_trace(
     if even:
         return savgol_filter(d, n, polyorder, deriv=1, delta=step, mode="interp")
     grid = np.arange(t[0], t[-1] + step / 2, step)
+    # the even grid can hold fewer points than the frames (clustered times): the window
+    # must fit it, odd and above the polynomial order, or there is no window at all
+    n = min(n, grid.size if grid.size % 2 else grid.size - 1)
+    if n <= polyorder:
+        return np.gradient(d, t)
     v = savgol_filter(np.interp(grid, t, d), n, polyorder, deriv=1, delta=step, mode="interp")
     return np.interp(t, grid, v)
