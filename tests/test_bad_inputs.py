@@ -429,3 +429,30 @@ def test_real_process_exit_1_without_traceback(files, tmp_path):
         "traceback and report it)"
     ]
     assert not (tmp_path / "o").exists()
+
+
+# --- batch layouts -----------------------------------------------------------------------
+
+_LAYOUTS = {
+    "no path column": ("well,role\nA1,vehicle\n", "path"),
+    "missing file": ("path,well\nnowhere.tif,A1\n", "nowhere.tif"),
+    "duplicate rows": ("path,well\nrec.npy,A1\nrec.npy,A1\n", "row 3"),
+    "bad concentration": ("path,well,compound,concentration,unit\nrec.npy,A1,X,lots,uM\n",
+                          "concentration"),
+    "unknown role": ("path,well,role\nrec.npy,A1,spectator\n", "role"),
+}  # fmt: skip
+
+
+@pytest.mark.parametrize("case", sorted(_LAYOUTS))
+def test_bad_layout(tmp_path, capsys, case):
+    # every problem of a layout is reported before any work: exit 2, the error names the
+    # spreadsheet row and column of each problem, no traceback, no output folder
+    text, needle = _LAYOUTS[case]
+    np.save(tmp_path / "rec.npy", np.zeros((20, 16, 16), np.float32))
+    layout = tmp_path / "plate.csv"
+    layout.write_text(text, encoding="utf-8")
+    code, out, err = _run(capsys, ["batch", layout, "--out", tmp_path / "out"])
+    assert code == 2 and out == "", err
+    assert err.startswith("beatlab: error: ") and needle in err, err
+    assert "Traceback" not in err
+    assert not (tmp_path / "out").exists()
