@@ -146,6 +146,31 @@ def demo_parameters(row: Mapping, scenario: Mapping, *, seed: int) -> dict:
     }
 
 
+def _simulate_one(job: tuple[dict, str]) -> None:
+    """Simulate one recording and write it with its truth (seeded: the same every run)."""
+    from beatlab.synth import simulate_recording, write_simulation
+
+    parameters, path = job
+    write_simulation(simulate_recording(**parameters), path)
+
+
+def _simulate_all(jobs: list, *, workers: int | None) -> None:
+    """Simulate every recording, in forked processes on Linux (one per core)."""
+    import multiprocessing
+
+    from beatlab.batch import available_cores
+    from beatlab.stages._parallel import _opencv_single_threaded, can_fork
+
+    processes = min(workers or available_cores(), len(jobs))
+    if processes <= 1 or not can_fork():
+        for job in jobs:
+            _simulate_one(job)
+        return
+    with _opencv_single_threaded():
+        with multiprocessing.get_context("fork").Pool(processes) as pool:
+            pool.map(_simulate_one, jobs, chunksize=1)
+
+
 def _check_folder(folder: Path) -> None:
     if folder.exists() and not folder.is_dir():
         raise InputError(f"--out {folder} is a file; pass a folder for the demo")
@@ -196,7 +221,6 @@ def run_demo(
         `out_dir` is a file or a folder holding other files.
     """
     from beatlab.batch import analyze_batch
-    from beatlab.synth import simulate_recording, write_simulation
 
     folder = Path(out_dir)
     _check_folder(folder)
@@ -215,9 +239,11 @@ def run_demo(
     todo = layout[~layout["exclude"].str.lower().isin(("yes", "true", "1"))]
     started = time.perf_counter()
     _say(f"simulating {len(todo)} recordings into {folder / 'recordings'}", quiet=quiet)
-    for seed, row in enumerate(todo.to_dict("records")):
-        sim = simulate_recording(**demo_parameters(row, scenario, seed=seed))
-        write_simulation(sim, folder / row["path"])
+    jobs = [
+        (demo_parameters(row, scenario, seed=seed), str(folder / row["path"]))
+        for seed, row in enumerate(todo.to_dict("records"))
+    ]
+    _simulate_all(jobs, workers=workers)
     simulated = time.perf_counter()
     _say("analysing the plate (tables, statistics, figures, report)", quiet=quiet)
     results = folder / "results"

@@ -68,7 +68,7 @@ def test_demo_end_to_end_on_small_recordings(tmp_path):
     run = run_demo(
         tmp_path / "demo",
         quiet=True,
-        recording={"shape_px": 48, "duration_s": 4.0, "fps": 20.0},
+        recording={"shape_px": 40, "duration_s": 4.0, "fps": 15.0},
         figures=False,
     )
     counts = run.batch.counts

@@ -329,7 +329,8 @@ def test_large_figures_are_embedded_downsampled_at_their_display_size(tmp_path):
 
     fig, ax = plt.subplots(figsize=(7, 3))
     ax.plot([0, 1, 2], [0, 1, 0])
-    fig.savefig(tmp_path / "big.png", dpi=300, bbox_inches=None)
+    with matplotlib.rc_context({"savefig.bbox": "standard"}):  # the whole 7 x 3 inches
+        fig.savefig(tmp_path / "big.png", dpi=300)
     plt.close(fig)
     original = (tmp_path / "big.png").read_bytes()
     assert _png_width(original) == 2100
