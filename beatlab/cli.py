@@ -409,7 +409,9 @@ def _analysis_folder(args) -> Path:
 
 def _check_replaceable(out: Path) -> None:
     """Refuse an --out folder that holds files other than an earlier analysis."""
-    if out.is_dir() and any(out.iterdir()) and not (out / "summary.json").is_file():
+    from beatlab.io.folders import holds_other_files
+
+    if holds_other_files(out, marker="summary.json"):
         raise OutputError(
             f"--out {out} is a folder with other files in it; pass a new or empty folder, or "
             "an earlier analysis folder (which is replaced)"

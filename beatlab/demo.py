@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from beatlab.errors import InputError
+from beatlab.io.folders import holds_other_files
 
 __all__ = ["DEMO_FILES", "DemoRun", "demo_parameters", "hill_fraction", "run_demo"]
 
@@ -156,25 +157,16 @@ def _simulate_one(job: tuple[dict, str]) -> None:
 
 def _simulate_all(jobs: list, *, workers: int | None) -> None:
     """Simulate every recording, in forked processes on Linux (one per core)."""
-    import multiprocessing
-
     from beatlab.batch import available_cores
-    from beatlab.stages._parallel import _opencv_single_threaded, can_fork
+    from beatlab.stages._parallel import fork_map
 
-    processes = min(workers or available_cores(), len(jobs))
-    if processes <= 1 or not can_fork():
-        for job in jobs:
-            _simulate_one(job)
-        return
-    with _opencv_single_threaded():
-        with multiprocessing.get_context("fork").Pool(processes) as pool:
-            pool.map(_simulate_one, jobs, chunksize=1)
+    fork_map(_simulate_one, jobs, workers=workers or available_cores())
 
 
 def _check_folder(folder: Path) -> None:
     if folder.exists() and not folder.is_dir():
         raise InputError(f"--out {folder} is a file; pass a folder for the demo")
-    if folder.is_dir() and any(folder.iterdir()) and not (folder / "scenario.toml").exists():
+    if holds_other_files(folder, marker="scenario.toml"):
         raise InputError(
             f"--out {folder} is a folder with other files in it; pass a new or empty folder "
             "(or an earlier demo folder, which is rebuilt)"
@@ -224,17 +216,17 @@ def run_demo(
 
     folder = Path(out_dir)
     _check_folder(folder)
-    folder.mkdir(parents=True, exist_ok=True)
-    for name in DEMO_FILES:
-        (folder / name).write_text(_read_scenario_file(name), encoding="utf-8")
     scenario = _scenario()
     unknown = set(recording or {}) - set(scenario["recording"])
-    if unknown:
+    if unknown:  # before anything is written
         raise InputError(
             f"unknown recording setting(s) {sorted(unknown)}; use keys of "
             f"{sorted(scenario['recording'])}"
         )
     scenario["recording"].update(recording or {})
+    folder.mkdir(parents=True, exist_ok=True)
+    for name in DEMO_FILES:
+        (folder / name).write_text(_read_scenario_file(name), encoding="utf-8")
     layout = pd.read_csv(folder / "layout.csv", dtype=str, keep_default_na=False)
     todo = layout[~layout["exclude"].str.lower().isin(("yes", "true", "1"))]
     started = time.perf_counter()

@@ -59,6 +59,7 @@ def test_demo_refuses_a_folder_of_other_files(tmp_path):
         run_demo(tmp_path, quiet=True)
     with pytest.raises(InputError, match="unknown recording setting"):
         run_demo(tmp_path / "new", quiet=True, recording={"size": 3})
+    assert not (tmp_path / "new").exists()  # refused before anything is written
 
 
 @pytest.mark.slow

@@ -9,7 +9,7 @@ import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
-__all__ = ["atomic_folder", "child_folder"]
+__all__ = ["atomic_folder", "child_folder", "holds_other_files"]
 
 
 def child_folder(parent: str | os.PathLike, name: str) -> Path:
@@ -35,6 +35,25 @@ def child_folder(parent: str | os.PathLike, name: str) -> Path:
     if bad or any(sep and sep in name for sep in (os.sep, os.altsep, "/")):
         raise ValueError(f"{name!r} is not a plain folder name; it must not leave {parent}")
     return Path(parent) / name
+
+
+def holds_other_files(folder: str | os.PathLike, *, marker: str) -> bool:
+    """Whether `folder` holds files but not `marker`: it is not beatlab's to replace.
+
+    Parameters
+    ----------
+    folder : path-like
+        An output folder about to be (re)written whole.
+    marker : str
+        A file that an earlier run of the same command leaves in it (``summary.json``).
+
+    Returns
+    -------
+    bool
+        False for a missing or empty folder and for an earlier run's folder.
+    """
+    folder = Path(folder)
+    return folder.is_dir() and any(folder.iterdir()) and not (folder / marker).is_file()
 
 
 @contextlib.contextmanager

@@ -363,26 +363,18 @@ def _render(job: tuple[int, Path, tuple[str, ...]]) -> tuple[str, dict[str, Path
 
 def _render_all(plan: list[_Figure], out: Path, formats, *, workers: int | None):
     """(name, outcome) of every planned figure, in plan order, drawn by forked workers."""
-    import multiprocessing
+    from beatlab.batch import available_cores
+    from beatlab.stages._parallel import fork_map
 
-    from beatlab.stages._parallel import _opencv_single_threaded, can_fork
-
-    if workers is None:
-        workers = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1
     jobs = [(i, out, tuple(formats)) for i in range(len(plan))]
     _PLANNED[:] = plan
     try:
-        if workers <= 1 or len(plan) <= 1 or not can_fork():
-            return [_render(job) for job in jobs]
-        import matplotlib
+        if len(plan) > 1:
+            import matplotlib
 
-        matplotlib.use("Agg", force=False)  # imported once, before the fork
-        import matplotlib.pyplot
-
-        with _opencv_single_threaded():
-            context = multiprocessing.get_context("fork")
-            with context.Pool(min(workers, len(plan))) as pool:
-                return pool.map(_render, jobs, chunksize=1)
+            matplotlib.use("Agg", force=False)  # imported once, before any fork
+            import matplotlib.pyplot
+        return fork_map(_render, jobs, workers=workers or available_cores())
     finally:
         _PLANNED.clear()
 

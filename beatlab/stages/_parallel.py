@@ -13,13 +13,13 @@ from __future__ import annotations
 import multiprocessing as mp
 import sys
 from collections import deque
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
 from contextlib import contextmanager
 
 import numpy as np
 
-__all__ = ["PARALLEL_MODES", "FrameMapper", "can_fork"]
+__all__ = ["PARALLEL_MODES", "FrameMapper", "can_fork", "fork_map"]
 
 #: How frames are spread over workers.
 PARALLEL_MODES = ("auto", "processes", "threads")
@@ -56,6 +56,20 @@ def _opencv_single_threaded():
         yield
     finally:
         cv2.setNumThreads(before)
+
+
+def fork_map(function: Callable, items: Sequence, *, workers: int) -> list:
+    """``[function(item) for item in items]``, in up to `workers` forked processes on Linux.
+
+    `function` must be a module-level function (children find it by name) and its results
+    picklable; children inherit everything else, so `function` may read state the parent set
+    before calling. One process, or no fork: in this process.
+    """
+    processes = min(int(workers), len(items))
+    if processes <= 1 or not can_fork():
+        return [function(item) for item in items]
+    with _opencv_single_threaded(), mp.get_context("fork").Pool(processes) as pool:
+        return pool.map(function, items, chunksize=1)
 
 
 class FrameMapper:

@@ -49,3 +49,14 @@ def test_child_folder_refuses_names_that_leave_the_parent(tmp_path, name):
 
 def test_child_folder_of_a_plain_name(tmp_path):
     assert child_folder(tmp_path, "P1_A1_1") == tmp_path / "P1_A1_1"
+
+
+def test_holds_other_files_tells_a_foreign_folder_from_an_earlier_run(tmp_path):
+    from beatlab.io.folders import holds_other_files
+
+    assert not holds_other_files(tmp_path / "missing", marker="summary.json")
+    assert not holds_other_files(tmp_path, marker="summary.json")  # empty
+    (tmp_path / "thesis.docx").write_text("x")
+    assert holds_other_files(tmp_path, marker="summary.json")
+    (tmp_path / "summary.json").write_text("{}")
+    assert not holds_other_files(tmp_path, marker="summary.json")  # an earlier analysis
