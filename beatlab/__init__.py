@@ -4,8 +4,6 @@ Research use only: not a diagnostic or medical device.
 """
 
 from beatlab._version import __version__
-from beatlab.batch import analyze_batch
-from beatlab.config import default_config, load_config
 from beatlab.errors import (
     AnalysisError,
     BeatlabError,
@@ -15,10 +13,36 @@ from beatlab.errors import (
     MetadataError,
     OutputError,
 )
-from beatlab.io import Recording, open_recording
-from beatlab.pipeline import analyze
-from beatlab.results import Analysis, read_analysis
-from beatlab.settings import Settings, load_settings
+
+# The rest is imported on first use (PEP 562): ``beatlab analyze`` then never pays for the
+# statistics of a batch (scipy.stats, about a second), and ``import beatlab`` stays quick.
+_LAZY = {
+    "Analysis": "beatlab.results",
+    "Recording": "beatlab.io",
+    "Settings": "beatlab.settings",
+    "analyze": "beatlab.pipeline",
+    "analyze_batch": "beatlab.batch",
+    "default_config": "beatlab.config",
+    "load_config": "beatlab.config",
+    "load_settings": "beatlab.settings",
+    "open_recording": "beatlab.io",
+    "read_analysis": "beatlab.results",
+}
+
+
+def __getattr__(name: str):
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'beatlab' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))
+
 
 __all__ = [
     "Analysis",

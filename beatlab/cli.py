@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import logging
 import math
+import os
 import re
 import signal
 import sys
@@ -437,7 +438,7 @@ def _cmd_analyze(args) -> int:
         progress=True,  # a bar on a terminal, plain lines in a log
     )
     with atomic_folder(out) as tmp:  # the folder has all of its files or none of them
-        result.save(tmp, figures=not args.no_figures)
+        result.save(tmp, figures=not args.no_figures, workers=min(4, os.cpu_count() or 1))
     print(f"{args.path}: {result.headline()} -> {out}")
     return EXIT_OK
 

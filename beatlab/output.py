@@ -42,6 +42,7 @@ def save_analysis(
     *,
     figures: bool = True,
     figure_formats: tuple[str, ...] = ("png", "svg"),
+    workers: int = 1,
 ) -> dict[str, Path]:
     """Write summary.json, beats.csv, trace.csv, average_beat.csv, region files, maps, figures.
 
@@ -57,6 +58,8 @@ def save_analysis(
         and ``report.html`` (:func:`beatlab.report.build_recording_report`).
     figure_formats : tuple of str
         Image formats of the figures (``png``, ``svg``, ``pdf``).
+    workers : int
+        Figures drawn at once (forked processes on Linux; 1: in this process).
 
     Returns
     -------
@@ -81,7 +84,9 @@ def save_analysis(
     if figures:
         from beatlab.plots import save_recording_figures
 
-        paths.update(save_recording_figures(analysis, out, formats=figure_formats))
+        paths.update(
+            save_recording_figures(analysis, out, formats=figure_formats, workers=workers)
+        )
         from beatlab.report import build_recording_report
 
         paths["report"] = build_recording_report(out)

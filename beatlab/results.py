@@ -112,6 +112,7 @@ class Analysis:
         *,
         figures: bool = True,
         figure_formats: tuple[str, ...] = ("png", "svg"),
+        workers: int = 1,
     ) -> dict[str, Path]:
         """Write the output files into ``out_dir`` (created if needed), each atomically.
 
@@ -123,6 +124,8 @@ class Analysis:
             Draw the figures (each with the CSV of what it plots).
         figure_formats : tuple of str
             File formats of each figure.
+        workers : int
+            Figures drawn at once (forked processes on Linux; 1: one after another here).
 
         Returns
         -------
@@ -131,7 +134,9 @@ class Analysis:
         """
         from beatlab.output import save_analysis
 
-        return save_analysis(self, out_dir, figures=figures, figure_formats=figure_formats)
+        return save_analysis(
+            self, out_dir, figures=figures, figure_formats=figure_formats, workers=workers
+        )
 
     def headline(self) -> str:
         """One line for people: beats, rate and rhythm, or each region's when several beat.

@@ -85,8 +85,35 @@ FIGURES = {
 """The figures of one recording, by file stem, in the order they are written."""
 
 
+# What the forked workers of save_recording_figures draw (set just before they fork).
+_JOB: tuple | None = None
+
+
+def _save_one(name: str) -> None:
+    """Write figure ``name`` of the job (and its table): the work of one forked worker."""
+    analysis, out, formats = _JOB
+    figure = FIGURES[name]
+    table: pd.DataFrame = figure.tabulate(analysis)
+    with atomic_path(out / f"{name}{PLOTTED_SUFFIX}") as tmp:
+        table.to_csv(tmp, index=False)
+    if formats:
+        from beatlab.plots import save_figure
+
+        save_figure(
+            lambda fig: figure.draw(analysis, fig),
+            out / f"{name}.{formats[0]}",
+            size=figure.size(analysis),
+            whole_figure=True,
+            formats=tuple(formats),
+        )
+
+
 def save_recording_figures(
-    analysis, out_dir: str | os.PathLike, *, formats: tuple[str, ...] = ("png", "svg")
+    analysis,
+    out_dir: str | os.PathLike,
+    *,
+    formats: tuple[str, ...] = ("png", "svg"),
+    workers: int = 1,
 ) -> dict[str, Path]:
     """Write every figure of :data:`FIGURES` and the table of what it plots into ``out_dir``.
 
@@ -98,6 +125,10 @@ def save_recording_figures(
         Output folder, created if needed; every file is written atomically.
     formats : tuple of str
         Image formats, any of ``png`` (300 dpi), ``svg``, ``pdf``.
+    workers : int
+        Figures drawn at once, in forked processes on Linux (1: one after another, in this
+        process; what a batch worker wants). Drawing is CPU-bound Python, so threads would
+        not overlap; the files are the same either way.
 
     Returns
     -------
@@ -115,25 +146,19 @@ def save_recording_figures(
         raise ConfigError(
             f"figure formats {unknown} are not supported; pass formats from {list(_FORMATS)}"
         )
-    from beatlab.plots import save_figure
+    from beatlab.stages._parallel import fork_map
 
+    global _JOB
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
+    _JOB = (analysis, out, tuple(formats))
+    try:
+        fork_map(_save_one, list(FIGURES), workers=workers)
+    finally:
+        _JOB = None
     paths: dict[str, Path] = {}
-    for name, figure in FIGURES.items():
-        table: pd.DataFrame = figure.tabulate(analysis)
-        csv = out / f"{name}{PLOTTED_SUFFIX}"
-        with atomic_path(csv) as tmp:
-            table.to_csv(tmp, index=False)
-        paths[f"{name}_plotted"] = csv
-        if formats:
-            save_figure(
-                lambda fig, figure=figure: figure.draw(analysis, fig),
-                out / f"{name}.{formats[0]}",
-                size=figure.size(analysis),
-                whole_figure=True,
-                formats=tuple(formats),
-            )
+    for name in FIGURES:
+        paths[f"{name}_plotted"] = out / f"{name}{PLOTTED_SUFFIX}"
         for fmt in formats:
             paths[f"{name}_{fmt}"] = out / f"{name}.{fmt}"
     return paths

@@ -17,7 +17,8 @@ from typing import NamedTuple
 
 import cv2
 import numpy as np
-from scipy import ndimage as ndi
+
+from beatlab.signals._cubic_warp import spline_coefficients, warp_cubic
 
 __all__ = ["ReferenceBasis", "gaussian_window", "prepare_reference", "refine_with_basis"]
 
@@ -97,19 +98,10 @@ def refine_with_basis(
     out = np.array(flow, dtype=np.float32, copy=True)
     if iterations == 0 or not basis.textured:
         return out
-    coeffs = ndi.spline_filter(np.asarray(moving, dtype=np.float64), order=3, mode="nearest")
-    ny, nx = basis.reference.shape
-    rows, cols = np.mgrid[0:ny, 0:nx].astype(np.float32)
+    coeffs = spline_coefficients(moving)
     for _ in range(iterations):
-        warped = ndi.map_coordinates(
-            coeffs,
-            [rows + out[..., 1], cols + out[..., 0]],
-            order=3,
-            mode="nearest",
-            prefilter=False,
-            output=np.float32,
-        )
-        error = warped - basis.reference
+        error = warp_cubic(coeffs, out)
+        error -= basis.reference
         rhs = [gaussian_window(b * error, basis.window_px) for b in basis.basis]
         # only the two displacement components of the solution are needed
         for comp in (0, 1):

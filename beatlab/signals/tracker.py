@@ -201,6 +201,7 @@ class FlowTracker:
         *,
         rigid_shift_px: np.ndarray | None = None,
         mean_magnitude: bool = True,
+        estimate_shift: bool = True,
     ) -> FlowMeasurement:
         """Displacement, rigid shift, shift-free flow and clipped fraction of one frame.
 
@@ -214,6 +215,10 @@ class FlowTracker:
         mean_magnitude : bool
             Compute ``displacement_um``; False leaves it NaN, for callers that reduce the
             field themselves (the per-frame pass projects it instead).
+        estimate_shift : bool
+            Estimate the frame's own rigid shift even when ``rigid_shift_px`` is given (a
+            median over the background or the mask); False leaves ``estimated_shift_px``
+            None in that case, which saves the median on every frame.
 
         Returns
         -------
@@ -247,7 +252,11 @@ class FlowTracker:
             iterations=self.refine_iterations,
         )
         flow[~finite] = np.nan
-        estimate = estimate_rigid_shift(flow, background=self.background)
+        estimate = (
+            estimate_rigid_shift(flow, background=self.background)
+            if estimate_shift or rigid_shift_px is None
+            else None
+        )
         shift = estimate if rigid_shift_px is None else np.asarray(rigid_shift_px, dtype=float)
         if shift.shape != (2,):
             raise InputError(f"rigid_shift_px must have shape (2,), got {shift.shape}; (dx, dy)")

@@ -361,6 +361,7 @@ class _FrameReducer:
             levelled,
             rigid_shift_px=drift if self.remove_rigid else np.zeros(2),
             mean_magnitude=False,
+            estimate_shift=not self.remove_rigid,
         )
         shift = meas.rigid_shift_px if self.remove_rigid else meas.estimated_shift_px
         used = meas.rigid_shift_px

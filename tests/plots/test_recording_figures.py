@@ -433,6 +433,16 @@ def test_save_recording_figures_writes_each_figure_and_what_it_plots(ead, tmp_pa
         save_recording_figures(ead, tmp_path, formats=("gif",))
 
 
+def test_figures_drawn_in_forked_workers_are_the_same_files(ead, tmp_path):
+    one, two = tmp_path / "one", tmp_path / "two"
+    paths = save_recording_figures(ead, one, formats=("png",), workers=1)
+    assert save_recording_figures(ead, two, formats=("png",), workers=2).keys() == paths.keys()
+    names = sorted(p.name for p in one.iterdir())
+    assert names == sorted(p.name for p in two.iterdir())
+    for name in names:  # byte-identical: same drawing code, same data, only another process
+        assert (one / name).read_bytes() == (two / name).read_bytes(), name
+
+
 def test_style_helpers():
     assert axis_label("time", "s") == "time (s)"
     assert axis_label("displacement", "um") == "displacement (µm)"
