@@ -16,6 +16,22 @@ def _solve_each(normal: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         return np.stack([np.linalg.lstsq(n, r, rcond=None)[0] for n, r in pairs])
 
 
+def _normal_matrices(weights: np.ndarray, a: np.ndarray, pairs: np.ndarray) -> np.ndarray:
+    """``a.T @ diag(w) @ a`` for each row ``w`` of ``weights`` (T, P): (T, k, k).
+
+    One matrix product with the design's column products (``pairs``, P x k(k+1)/2) instead
+    of a (T, k, P) weighted copy of the design: the fits of a whole batch of frames then cost
+    a few BLAS calls.
+    """
+    k = a.shape[1]
+    sums = weights @ pairs
+    normal = np.empty((weights.shape[0], k, k))
+    iu = np.triu_indices(k)
+    normal[:, iu[0], iu[1]] = sums
+    normal[:, iu[1], iu[0]] = sums
+    return normal
+
+
 def _tukey_irls(a: np.ndarray, d: np.ndarray) -> np.ndarray:
     """Robust fit of each row of ``d`` (T, P) on the design ``a`` (P, k): coefficients (T, k).
 
@@ -23,20 +39,19 @@ def _tukey_irls(a: np.ndarray, d: np.ndarray) -> np.ndarray:
     The scale is the MAD of the start's residuals (it ignores the moving cells already;
     re-estimating it at every step changes little and costs two medians each time).
     """
+    iu = np.triu_indices(a.shape[1])
+    pairs = a[:, iu[0]] * a[:, iu[1]]  # (P, k(k+1)/2): products of the design's columns
     coef = _solve_each(np.broadcast_to(a.T @ a, (d.shape[0], a.shape[1], a.shape[1])), d @ a)
     r = d - coef @ a.T
     scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
     robust = scale > 0
+    if not robust.any():
+        return coef
+    d_robust, cut = d[robust], 4.685 * scale[robust, None]
     for step in range(3):
-        if not robust.any():
-            break
-        if step:
-            r = d - coef @ a.T
-        u = r[robust] / (4.685 * scale[robust, None])
-        w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
-        weighted = (w[:, :, None] * a).transpose(0, 2, 1)  # (T, k, P)
-        rhs = np.matmul(weighted, d[robust][:, :, None])[:, :, 0]
-        coef[robust] = _solve_each(np.matmul(weighted, a), rhs)
+        r = d_robust - coef[robust] @ a.T if step else r[robust]
+        w = np.clip(1.0 - (r / cut) ** 2, 0.0, None) ** 2  # Tukey biweight, 0 beyond the cut
+        coef[robust] = _solve_each(_normal_matrices(w, a, pairs), (w * d_robust) @ a)
     return coef
 
 

@@ -41,7 +41,7 @@ def _call(method: str, indices: np.ndarray, frames: np.ndarray) -> list:
 
 @contextmanager
 def _opencv_single_threaded():
-    """OpenCV runs inline (no thread pool) in this process and in processes forked meanwhile.
+    """OpenCV and BLAS run inline (no thread pools) here and in processes forked meanwhile.
 
     A forked child has none of the parent's OpenCV pool threads; any call that reconfigures
     or wakes that pool would wait for them forever (seen: ``cv2.setNumThreads`` in a child
@@ -49,11 +49,14 @@ def _opencv_single_threaded():
     workers fill the cores anyway.
     """
     import cv2
+    from threadpoolctl import threadpool_limits
 
     before = cv2.getNumThreads()
     cv2.setNumThreads(1)
     try:
-        yield
+        # BLAS too: the workers fill the cores, and a BLAS pool in each would oversubscribe
+        with threadpool_limits(limits=1):
+            yield
     finally:
         cv2.setNumThreads(before)
 

@@ -56,6 +56,8 @@ _MIN_ALIGN_PX = 0.02
 MAX_DRIFT_FRAMES = 64
 #: At most this many of the most contracted frames build the patterns (and at least 8).
 MAX_PATTERN_FRAMES = 48
+#: At most this much memory (MB) keeps the pattern frames' values for the projection round.
+_GATHERED_BUDGET_MB = 256
 #: Share of the frames, the most contracted, that may build the patterns.
 _PATTERN_QUANTILE = 0.15
 
@@ -393,18 +395,30 @@ class _FrameWork:
         """The frame's own rigid shift (2,), px."""
         return self.reducer.fields(frame, None, self.frame_ref[i])[2]
 
+    def _gathered(self, i, frame):
+        flow, diff, shift, clip = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
+        finite = bool(np.isfinite(flow[self.mask]).any())
+        return (
+            self.cells.gather(flow).astype(np.float32),
+            self.cells.gather(diff),
+            shift,
+            clip,
+            finite,
+        )
+
     def pattern(self, i, frame):
-        """The frame's field and OPD difference at the used pixels."""
-        flow, diff, _, _ = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
-        return self.cells.gather(flow).astype(np.float32), self.cells.gather(diff)
+        """The frame's field and OPD difference at the used pixels, its shift, clipping and
+        whether any mask pixel is finite (what :meth:`project_gathered` needs later)."""
+        return self._gathered(i, frame)
 
     def project(self, i, frame):
         """Per-cell projections, own terms (pattern and template frames), shift, clipping,
         whether any mask pixel is finite."""
+        return self.project_gathered(i, *self._gathered(i, frame))
+
+    def project_gathered(self, i, f, d, shift, clip, finite):
+        """:meth:`project` of a frame whose values at the used pixels are known already."""
         cells, pat = self.cells, self.patterns
-        flow, diff, shift, clip = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
-        f = cells.gather(flow)
-        d = cells.gather(diff)
         own = None
         if i in self.pattern_frames or self.template_k[i] > 1:
             own = tuple(cells.cell_sums(v) for v in pat.own_terms(f, d))
@@ -414,7 +428,7 @@ class _FrameWork:
             own,
             shift,
             clip,
-            bool(np.isfinite(flow[self.mask]).any()),
+            finite,
         )
 
 
@@ -523,27 +537,43 @@ def measure_frames(
     rounds = [(pattern_idx, "pattern"), (np.arange(n), "project")]
     if interpolate:
         rounds.insert(0, (drift_frames, "drift"))
+
+    def take_projection(i, result):
+        field_dot[i], opd_dot[i], own, shifts[i], clipped[i], finite[i] = result
+        if own is not None and i in weight_of:
+            field_sq[i], opd_sq[i] = own
+        if own is not None and work.template_k[i] > 1:
+            in_template[i] = own
+
+    # the pattern frames' values at the used pixels, kept from the pattern round so that the
+    # projection round need not track those frames again (within a memory budget)
+    gathered: dict[int, tuple] = {}
+    budget = _GATHERED_BUDGET_MB * 2**20
     mapper = FrameMapper(workers or min(4, os.cpu_count() or 1), mode=parallel)
     with progress_bar(
         total=sum(idx.size for idx, _ in rounds), desc="measuring frames", enabled=progress
     ) as bar:
         for idx, method in rounds:
-            if method == "project":
-                work.patterns = accumulator.patterns()
             keep = np.zeros(n, dtype=bool)
             keep[idx] = True
+            if method == "project":
+                work.patterns = accumulator.patterns()
+                for i, values in gathered.items():
+                    take_projection(i, work.project_gathered(i, *values))
+                keep[list(gathered)] = False
+                bar.update(len(gathered))
+                gathered.clear()
             for done, results in mapper.run(work, method, source.select_chunks(keep)):
                 for i, result in zip(done.tolist(), results, strict=True):
                     if method == "drift":
                         shifts[i] = result
                     elif method == "pattern":
-                        accumulator.add_gathered(i, *result, weight_of[i])
+                        accumulator.add_gathered(i, *result[:2], weight_of[i])
+                        budget -= result[0].nbytes + result[1].nbytes
+                        if budget >= 0:
+                            gathered[i] = result
                     else:
-                        field_dot[i], opd_dot[i], own, shifts[i], clipped[i], finite[i] = result
-                        if own is not None and i in weight_of:
-                            field_sq[i], opd_sq[i] = own
-                        if own is not None and work.template_k[i] > 1:
-                            in_template[i] = own
+                        take_projection(i, result)
                 bar.update(len(done))
             if method == "drift":
                 work.drift_px = interpolate_drift(times_s, idx, shifts[idx])

@@ -106,3 +106,32 @@ def test_frame_pass_drift_off_leaves_the_stage_motion_in(drifting):
     # erratic: 1.17 um, and 0.61 um since the template's levelling fit became subsampled),
     # far above the beats (< 0.3 um)
     assert np.nanmean(frames.displacement_um[-5:]) > 0.45
+
+
+def test_pattern_frames_are_tracked_once_and_read_the_same(drifting, monkeypatch):
+    """The projection round reuses the pattern round's values of the pattern frames: the
+    same numbers as tracking them again, for one tracking per frame fewer."""
+    import beatlab.stages.frame_pass as fp
+
+    _, rec, source = drifting
+    times = np.asarray(rec.times_s)
+    settings = load_settings()
+    ref = prepare_reference(source, times_s=times, settings=settings)
+    calls = []
+    original = fp._FrameReducer.fields
+
+    def counted(self, frame, drift, which):
+        calls.append(1)
+        return original(self, frame, drift, which)
+
+    monkeypatch.setattr(fp._FrameReducer, "fields", counted)
+    kept = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
+    tracked_with_cache = len(calls)
+    calls.clear()
+    monkeypatch.setattr(fp, "_GATHERED_BUDGET_MB", 0)  # nothing kept: tracked again
+    again = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
+    n_pattern = kept.pattern_frames.size
+    assert n_pattern > 0
+    assert len(calls) - tracked_with_cache == n_pattern
+    for name in ("displacement_um", "opd_change_nm", "drift_px", "tile_traces_um"):
+        np.testing.assert_array_equal(getattr(kept, name), getattr(again, name), err_msg=name)
