@@ -91,6 +91,10 @@ class _Frames:
         pass
 
 
+#: Configuration of every analysis (``--config``; None: the defaults).
+CONFIG = None
+
+
 def _analyze(sim):
     """``beatlab.analyze`` on the simulated frames; returns the analysis and its warnings."""
     rec = Recording(
@@ -105,7 +109,7 @@ def _analyze(sim):
     )
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        res = analyze(rec)
+        res = analyze(rec, CONFIG)
     return res, sorted({str(w.message).splitlines()[0][:90] for w in caught})
 
 
@@ -245,7 +249,10 @@ def main(argv=None) -> None:
     parser.add_argument("--size", type=int, default=256, help="frame side in px (0.5 um)")
     parser.add_argument("--duration-s", type=float, default=5.0, help="recording length (s)")
     parser.add_argument("--quick", action="store_true", help="1 seed, 96 px, 4 s")
+    parser.add_argument("--config", help="TOML file of analysis settings (default: defaults)")
     args = parser.parse_args(argv)
+    global CONFIG
+    CONFIG = args.config
     if args.quick:
         args.seeds, args.size, args.duration_s = 1, 96, 4.0
     t0 = time.perf_counter()

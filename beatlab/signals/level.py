@@ -16,14 +16,19 @@ def _solve_each(normal: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         return np.stack([np.linalg.lstsq(n, r, rcond=None)[0] for n, r in pairs])
 
 
-def _normal_matrices(weights: np.ndarray, a: np.ndarray, pairs: np.ndarray) -> np.ndarray:
+def _column_products(a: np.ndarray) -> np.ndarray:
+    """Products of the design's columns (P, k(k+1)/2), upper triangle in row-major order."""
+    iu = np.triu_indices(a.shape[1])
+    return a[:, iu[0]] * a[:, iu[1]]
+
+
+def _normal_matrices(weights: np.ndarray, pairs: np.ndarray, k: int) -> np.ndarray:
     """``a.T @ diag(w) @ a`` for each row ``w`` of ``weights`` (T, P): (T, k, k).
 
-    One matrix product with the design's column products (``pairs``, P x k(k+1)/2) instead
-    of a (T, k, P) weighted copy of the design: the fits of a whole batch of frames then cost
-    a few BLAS calls.
+    One matrix product with the design's column products (``pairs``,
+    :func:`_column_products`) instead of a (T, k, P) weighted copy of the design: the fits
+    of a whole batch of frames then cost a few BLAS calls.
     """
-    k = a.shape[1]
     sums = weights @ pairs
     normal = np.empty((weights.shape[0], k, k))
     iu = np.triu_indices(k)
@@ -32,16 +37,17 @@ def _normal_matrices(weights: np.ndarray, a: np.ndarray, pairs: np.ndarray) -> n
     return normal
 
 
-def _tukey_irls(a: np.ndarray, d: np.ndarray) -> np.ndarray:
+def _tukey_irls(a: np.ndarray, d: np.ndarray, pairs: np.ndarray | None = None) -> np.ndarray:
     """Robust fit of each row of ``d`` (T, P) on the design ``a`` (P, k): coefficients (T, k).
 
     Ordinary least squares, then three Tukey-biweight reweightings (tuning 4.685 robust SDs).
     The scale is the MAD of the start's residuals (it ignores the moving cells already;
     re-estimating it at every step changes little and costs two medians each time).
+    ``pairs``: :func:`_column_products` of ``a``, when the caller keeps it.
     """
-    iu = np.triu_indices(a.shape[1])
-    pairs = a[:, iu[0]] * a[:, iu[1]]  # (P, k(k+1)/2): products of the design's columns
-    coef = _solve_each(np.broadcast_to(a.T @ a, (d.shape[0], a.shape[1], a.shape[1])), d @ a)
+    k = a.shape[1]
+    pairs = _column_products(a) if pairs is None else pairs
+    coef = _solve_each(np.broadcast_to(a.T @ a, (d.shape[0], k, k)), d @ a)
     r = d - coef @ a.T
     scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
     robust = scale > 0
@@ -51,7 +57,7 @@ def _tukey_irls(a: np.ndarray, d: np.ndarray) -> np.ndarray:
     for step in range(3):
         r = d_robust - coef[robust] @ a.T if step else r[robust]
         w = np.clip(1.0 - (r / cut) ** 2, 0.0, None) ** 2  # Tukey biweight, 0 beyond the cut
-        coef[robust] = _solve_each(_normal_matrices(w, a, pairs), (w * d_robust) @ a)
+        coef[robust] = _solve_each(_normal_matrices(w, pairs, k), (w * d_robust) @ a)
     return coef
 
 
@@ -107,17 +113,22 @@ class PlaneLeveller:
         if tilt:
             cols += [self._x.ravel()[self._idx], self._y.ravel()[self._idx]]
         self._design = np.stack(cols, axis=1).astype(np.float64)
+        self._pairs = _column_products(self._design)
         self.tilt = bool(tilt)
         self.template = template
+        self._template_at_idx = template.ravel()[self._idx]
 
     def fit(self, frame: np.ndarray) -> np.ndarray:
         """Return the plane coefficients (offset nm, x-tilt, y-tilt per field) for ``frame``."""
-        diff = (np.asarray(frame, dtype=np.float32) - self.template).ravel()[self._idx]
+        frame = np.asarray(frame, dtype=np.float32).ravel()[self._idx]
+        diff = (frame - self._template_at_idx).astype(np.float64)
         good = np.isfinite(diff)
+        if good.all():  # the usual case: the design and its products as prepared
+            return _tukey_irls(self._design, diff[None], self._pairs)[0]
         a = self._design[good]
         if good.sum() < a.shape[1]:
             return np.zeros(a.shape[1])
-        return _tukey_irls(a, diff[good].astype(np.float64)[None])[0]
+        return _tukey_irls(a, diff[good][None])[0]
 
     def fit_stack(self, frames: np.ndarray) -> np.ndarray:
         """:meth:`fit` of every frame of a stack (T, Y, X) at once, coefficients (T, k).
@@ -127,10 +138,10 @@ class PlaneLeveller:
         """
         stack = np.asarray(frames, dtype=np.float32)
         n = stack.shape[0]
-        diff = stack.reshape(n, -1)[:, self._idx] - self.template.ravel()[self._idx]
+        diff = stack.reshape(n, -1)[:, self._idx] - self._template_at_idx
         if not np.isfinite(diff).all() or diff.shape[1] < self._design.shape[1]:
             return np.stack([self.fit(frame) for frame in stack]) if n else np.zeros((0, 0))
-        return _tukey_irls(self._design, diff.astype(np.float64))
+        return _tukey_irls(self._design, diff.astype(np.float64), self._pairs)
 
     def _plane(self, coef: np.ndarray) -> np.ndarray | np.float32:
         plane = np.float32(coef[0])

@@ -56,7 +56,8 @@ _MIN_ALIGN_PX = 0.02
 MAX_DRIFT_FRAMES = 64
 #: At most this many of the most contracted frames build the patterns (and at least 8).
 MAX_PATTERN_FRAMES = 48
-#: At most this much memory (MB) keeps the pattern frames' values for the projection round.
+#: At most this much memory (MB) keeps the drift and pattern frames' values for the
+#: projection round.
 _GATHERED_BUDGET_MB = 256
 #: Share of the frames, the most contracted, that may build the patterns.
 _PATTERN_QUANTILE = 0.15
@@ -392,8 +393,9 @@ class _FrameWork:
         return None if self.drift_px is None else self.drift_px[i]
 
     def drift(self, i, frame):
-        """The frame's own rigid shift (2,), px."""
-        return self.reducer.fields(frame, None, self.frame_ref[i])[2]
+        """:meth:`pattern` before the drift is known: the shift in it is the frame's own
+        rigid shift (2,), px, which the interpolated drift later equals at this frame."""
+        return self._gathered(i, frame)
 
     def _gathered(self, i, frame):
         flow, diff, shift, clip = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
@@ -545,8 +547,9 @@ def measure_frames(
         if own is not None and work.template_k[i] > 1:
             in_template[i] = own
 
-    # the pattern frames' values at the used pixels, kept from the pattern round so that the
-    # projection round need not track those frames again (within a memory budget)
+    # the drift and pattern frames' values at the used pixels, kept from their rounds so that
+    # the projection round need not track those frames again (within a memory budget); a
+    # drift frame's interpolated drift is its own measured shift, so nothing differs
     gathered: dict[int, tuple] = {}
     budget = _GATHERED_BUDGET_MB * 2**20
     mapper = FrameMapper(workers or min(4, os.cpu_count() or 1), mode=parallel)
@@ -565,15 +568,16 @@ def measure_frames(
                 gathered.clear()
             for done, results in mapper.run(work, method, source.select_chunks(keep)):
                 for i, result in zip(done.tolist(), results, strict=True):
-                    if method == "drift":
-                        shifts[i] = result
-                    elif method == "pattern":
-                        accumulator.add_gathered(i, *result[:2], weight_of[i])
-                        budget -= result[0].nbytes + result[1].nbytes
-                        if budget >= 0:
-                            gathered[i] = result
-                    else:
+                    if method == "project":
                         take_projection(i, result)
+                        continue
+                    if method == "drift":
+                        shifts[i] = result[2]
+                    else:
+                        accumulator.add_gathered(i, *result[:2], weight_of[i])
+                    budget -= result[0].nbytes + result[1].nbytes
+                    if budget >= 0:
+                        gathered[i] = result
                 bar.update(len(done))
             if method == "drift":
                 work.drift_px = interpolate_drift(times_s, idx, shifts[idx])

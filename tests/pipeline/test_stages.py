@@ -108,30 +108,32 @@ def test_frame_pass_drift_off_leaves_the_stage_motion_in(drifting):
     assert np.nanmean(frames.displacement_um[-5:]) > 0.45
 
 
-def test_pattern_frames_are_tracked_once_and_read_the_same(drifting, monkeypatch):
-    """The projection round reuses the pattern round's values of the pattern frames: the
-    same numbers as tracking them again, for one tracking per frame fewer."""
+def test_drift_and_pattern_frames_are_tracked_once_and_read_the_same(drifting, monkeypatch):
+    """The projection round reuses the values the drift and pattern rounds measured: the
+    same numbers as tracking those frames again, and every frame is tracked once."""
+    from collections import Counter
+
     import beatlab.stages.frame_pass as fp
 
     _, rec, source = drifting
     times = np.asarray(rec.times_s)
     settings = load_settings()
     ref = prepare_reference(source, times_s=times, settings=settings)
-    calls = []
-    original = fp._FrameReducer.fields
+    tracked = Counter()
+    original = fp._FrameWork._gathered
 
-    def counted(self, frame, drift, which):
-        calls.append(1)
-        return original(self, frame, drift, which)
+    def counted(self, i, frame):
+        tracked[i] += 1
+        return original(self, i, frame)
 
-    monkeypatch.setattr(fp._FrameReducer, "fields", counted)
+    monkeypatch.setattr(fp._FrameWork, "_gathered", counted)
     kept = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
-    tracked_with_cache = len(calls)
-    calls.clear()
+    assert kept.drift_reference.endswith("interpolated")  # a drift round ran
+    assert sorted(tracked) == list(range(times.size)) and max(tracked.values()) == 1
+    tracked.clear()
     monkeypatch.setattr(fp, "_GATHERED_BUDGET_MB", 0)  # nothing kept: tracked again
     again = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
-    n_pattern = kept.pattern_frames.size
-    assert n_pattern > 0
-    assert len(calls) - tracked_with_cache == n_pattern
+    twice = {i for i, count in tracked.items() if count == 2}
+    assert set(kept.pattern_frames) <= twice and len(twice) > len(kept.pattern_frames)
     for name in ("displacement_um", "opd_change_nm", "drift_px", "tile_traces_um"):
         np.testing.assert_array_equal(getattr(kept, name), getattr(again, name), err_msg=name)
