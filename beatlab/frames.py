@@ -212,6 +212,29 @@ class OPDSource:
             if idx.size:
                 yield i0 + idx, self._convert(block[idx])
 
+    def select_indices(self, keep: np.ndarray) -> Iterator[tuple[np.ndarray, None]]:
+        """:meth:`select_chunks` without reading: ``(frame_indices, None)`` per chunk, for
+        workers that read their frames themselves (:meth:`frames_at`)."""
+        keep = np.asarray(keep, dtype=bool)
+        for i0 in range(0, self.n_frames, self.chunk_frames):
+            idx = np.flatnonzero(keep[i0 : i0 + self.chunk_frames])
+            if idx.size:
+                yield i0 + idx, None
+
+    def frames_at(self, indices: np.ndarray) -> np.ndarray:
+        """OPD frames (n, Y, X) nm at sorted ``indices``, read as one stretch of the file."""
+        indices = np.asarray(indices, dtype=int)
+        lo, hi = int(indices[0]), int(indices[-1]) + 1
+        ((_, block),) = self.recording.chunks(hi - lo, start=lo, stop=hi)
+        return self._convert(block[indices - lo])
+
+    @property
+    def readable_in_forks(self) -> bool:
+        """Whether forked workers may read frames themselves (:meth:`frames_at`): the frames
+        come from a memory map or an array, or from separate files, never through a file
+        handle the processes would share."""
+        return bool(getattr(self.recording.frames, "readable_in_forks", False))
+
     def frame(self, index: int) -> np.ndarray:
         """One OPD frame (Y, X) in nm."""
         return self._convert(self.recording.frame(index)[None])[0]

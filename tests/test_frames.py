@@ -99,3 +99,17 @@ def test_binned_frames_are_block_means_on_a_coarser_grid():
     assert OPDSource(_rec(opd, "opd"), bin=1).shape == (33, 34)
     with pytest.raises(InputError, match="bin 8 leaves only"):
         OPDSource(_rec(opd, "opd"), bin=8)
+
+
+def test_select_indices_and_frames_at_read_what_select_chunks_reads():
+    frames = np.random.default_rng(4).normal(size=(20, 24, 20)).astype(np.float32)
+    src = OPDSource(_rec(frames, "opd"), chunk_frames=7, bin=2)
+    keep = np.zeros(20, dtype=bool)
+    keep[[1, 2, 5, 9, 13, 14, 19]] = True
+    chunks = list(src.select_chunks(keep))
+    lazy = list(src.select_indices(keep))
+    assert [i.tolist() for i, _ in lazy] == [i.tolist() for i, _ in chunks]
+    assert all(f is None for _, f in lazy)
+    for (idx, expected), (same, _) in zip(chunks, lazy, strict=True):
+        np.testing.assert_array_equal(src.frames_at(same), expected)
+    assert src.readable_in_forks  # an array in memory

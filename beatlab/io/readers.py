@@ -60,6 +60,9 @@ class _ArraySource:
         self.n_frames = int(array.shape[0])
         self.frame_shape = tuple(int(s) for s in array.shape[1:])
         self.dtype = np.dtype(array.dtype)
+        # a numpy array or memory map reads the same in a forked process; an HDF5 dataset's
+        # file handle is not to be shared
+        self.readable_in_forks = isinstance(array, np.ndarray)
 
     def close(self) -> None:
         if self.owner is not None:
@@ -113,6 +116,7 @@ class _FolderSource:
         self.n_frames = len(files)
         self.frame_shape = first.shape
         self.dtype = first.dtype
+        self.readable_in_forks = True  # every read opens its own files
 
     @staticmethod
     def _load(path: Path) -> np.ndarray:

@@ -24,8 +24,10 @@ __all__ = ["PARALLEL_MODES", "FrameMapper", "can_fork", "fork_map"]
 #: How frames are spread over workers.
 PARALLEL_MODES = ("auto", "processes", "threads")
 
-# The work object a forked worker inherits (set just before a pool forks, cleared after).
+# The work object a forked worker inherits (set just before a pool forks, cleared after),
+# and the reader of frames by index when the workers read their own frames.
 _ACTIVE = None
+_READER = None
 
 
 def can_fork() -> bool:
@@ -34,7 +36,9 @@ def can_fork() -> bool:
     return sys.platform.startswith("linux") and "fork" in mp.get_all_start_methods()
 
 
-def _call(method: str, indices: np.ndarray, frames: np.ndarray) -> list:
+def _call(method: str, indices: np.ndarray, frames: np.ndarray | None) -> list:
+    if frames is None:  # the worker reads its frames itself
+        frames = _READER(indices)
     fn = getattr(_ACTIVE, method)
     return [fn(int(i), f) for i, f in zip(indices, frames, strict=True)]
 
@@ -94,9 +98,22 @@ class FrameMapper:
         self.processes = mode in ("auto", "processes") and can_fork() and self.workers > 1
 
     def run(
-        self, work, method: str, chunks: Iterable[tuple[np.ndarray, np.ndarray]]
+        self,
+        work,
+        method: str,
+        chunks: Iterable[tuple[np.ndarray, np.ndarray | None]],
+        *,
+        reader: Callable[[np.ndarray], np.ndarray] | None = None,
     ) -> Iterator[tuple[np.ndarray, list]]:
-        """Yield ``(indices, results)`` per chunk of ``(indices, frames)``."""
+        """Yield ``(indices, results)`` per chunk of ``(indices, frames)``.
+
+        With a ``reader`` (frame indices -> frames), chunks may carry ``None`` for their
+        frames: forked workers then read their own share of the chunk (the parent only hands
+        out indices, and no frame travels through a pipe); elsewhere the frames are read here.
+        The reader must be safe to call in a forked child (a memory map, separate files).
+        """
+        if reader is not None and not self.processes:
+            chunks = ((idx, reader(idx) if frames is None else frames) for idx, frames in chunks)
         if self.workers == 1:
             fn = getattr(work, method)
             for idx, frames in chunks:
@@ -107,11 +124,11 @@ class FrameMapper:
                 for idx, frames in chunks:
                     yield idx, list(pool.map(fn, (int(i) for i in idx), frames))
         else:
-            yield from self._forked(work, method, chunks)
+            yield from self._forked(work, method, chunks, reader)
 
-    def _forked(self, work, method, chunks):
-        global _ACTIVE
-        _ACTIVE = work
+    def _forked(self, work, method, chunks, reader):
+        global _ACTIVE, _READER
+        _ACTIVE, _READER = work, reader
         try:
             context = mp.get_context("fork")
             with (
@@ -123,7 +140,10 @@ class FrameMapper:
                     parts = [
                         p for p in np.array_split(np.arange(len(idx)), self.workers) if p.size
                     ]
-                    futures = [pool.submit(_call, method, idx[p], frames[p]) for p in parts]
+                    futures = [
+                        pool.submit(_call, method, idx[p], None if frames is None else frames[p])
+                        for p in parts
+                    ]
                     pending.append((idx, futures))
                     # one chunk in flight while the next is read: reading overlaps the work
                     if len(pending) > 1:
@@ -131,7 +151,7 @@ class FrameMapper:
                 while pending:
                     yield self._collect(pending.popleft())
         finally:
-            _ACTIVE = None
+            _ACTIVE = _READER = None
 
     @staticmethod
     def _collect(item):

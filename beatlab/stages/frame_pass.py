@@ -553,6 +553,10 @@ def measure_frames(
     gathered: dict[int, tuple] = {}
     budget = _GATHERED_BUDGET_MB * 2**20
     mapper = FrameMapper(workers or min(4, os.cpu_count() or 1), mode=parallel)
+    # forked workers read (and convert: phase unwrapping, hologram reconstruction) their own
+    # frames where that is safe; the rest pass has already read every frame here once, so
+    # any warning about the file has been raised in this process
+    forked_reading = mapper.processes and source.readable_in_forks
     with progress_bar(
         total=sum(idx.size for idx, _ in rounds), desc="measuring frames", enabled=progress
     ) as bar:
@@ -566,7 +570,12 @@ def measure_frames(
                 keep[list(gathered)] = False
                 bar.update(len(gathered))
                 gathered.clear()
-            for done, results in mapper.run(work, method, source.select_chunks(keep)):
+            for done, results in mapper.run(
+                work,
+                method,
+                source.select_indices(keep) if forked_reading else source.select_chunks(keep),
+                reader=source.frames_at if forked_reading else None,
+            ):
                 for i, result in zip(done.tolist(), results, strict=True):
                     if method == "project":
                         take_projection(i, result)

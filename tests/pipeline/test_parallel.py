@@ -60,3 +60,24 @@ def test_forked_workers_do_not_hang_on_opencv():
     expected = [float(cv2.GaussianBlur(f, (9, 9), 2.0).sum()) for f in frames]
     np.testing.assert_allclose(got, expected, rtol=1e-6)
     assert cv2.getNumThreads() >= 1
+
+
+@pytest.mark.parametrize("mode", ["auto", "threads"])
+@pytest.mark.parametrize("workers", [1, 2])
+def test_workers_can_read_their_own_frames(mode, workers):
+    """With a reader the chunks carry indices only; forked workers read their share."""
+    frames = np.random.default_rng(2).normal(size=(17, 3, 4))
+    reads = []
+
+    def reader(idx):
+        reads.append(idx.tolist())  # seen here only when this process reads
+        return frames[idx]
+
+    work = _Work()
+    chunks = ((idx, None) for idx, _ in _chunks(frames, 5))
+    got = [r for _, rs in FrameMapper(workers, mode=mode).run(work, "total", chunks,
+                                                                reader=reader) for r in rs]  # fmt: skip
+    assert [i for i, _ in got] == list(range(17))
+    np.testing.assert_allclose([v for _, v in got], frames.sum(axis=(1, 2)))
+    forked = mode == "auto" and workers > 1 and can_fork()
+    assert (reads == []) == forked  # forked workers read in their own processes
