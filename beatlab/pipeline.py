@@ -220,8 +220,9 @@ def analyze(
         times = np.asarray(rec.times_s, dtype=float)
         start_s, end_s = float(times[0]), float(times[-1] + 1.0 / rec.fps)
         ref = prepare_reference(
-            source, times_s=times, settings=settings, regions=regions, progress=progress
-        )
+            source, times_s=times, settings=settings, regions=regions, workers=workers,
+            progress=progress,
+        )  # fmt: skip
         frames = measure_frames(
             source, ref, times_s=times, settings=settings, workers=workers, progress=progress
         )

@@ -224,7 +224,7 @@ def _shrink(data: bytes, width_px: int) -> bytes:
                 image = image.resize((width_px, height), Image.Resampling.BILINEAR)
             small = image.quantize(colors=256, method=Image.Quantize.FASTOCTREE)
             buffer = io.BytesIO()
-            small.save(buffer, format="PNG", compress_level=9)
+            small.save(buffer, format="PNG", compress_level=6)  # 9: ~3x the time, ~5 % smaller
             return buffer.getvalue()
     except (ImportError, OSError, ValueError):
         return data

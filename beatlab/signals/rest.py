@@ -17,6 +17,7 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import ndimage
 
+from beatlab._fork import fork_imap
 from beatlab._progress import progress_bar
 from beatlab.errors import InputError
 from beatlab.frames import block_mean
@@ -99,7 +100,6 @@ class RestTemplate:
 
 
 #: Low-resolution frames levelled together (bounds the temporaries of the vectorised fit).
-_LEVEL_BATCH = 256
 #: At most about this many pixels of a low-resolution frame enter its plane fit.
 _REST_LEVEL_PIXELS = 1024
 
@@ -302,6 +302,68 @@ def _phase_shift(ref: np.ndarray, img: np.ndarray, window: np.ndarray) -> np.nda
     return np.array([dx, dy])
 
 
+# What the forked workers of the rest pass read (set just before each map, cleared after).
+_JOB: dict = {}
+
+
+def _spans(n: int, parts: int) -> list[tuple[int, int]]:
+    """``[start, stop)`` spans covering ``range(n)`` in about ``parts`` pieces."""
+    edges = np.linspace(0, n, min(max(parts, 1), max(n, 1)) + 1).round().astype(int)
+    return [(int(a), int(b)) for a, b in itertools.pairwise(edges) if b > a]
+
+
+def _low_resolution_span(span: tuple[int, int]) -> np.ndarray:
+    source, factor = _JOB["source"], _JOB["factor"]
+    start, stop = span
+    return np.stack(
+        [
+            _filled(block_mean(frame, factor))
+            for _, block in source.chunks(start=start, stop=stop)
+            for frame in block
+        ]
+    )
+
+
+def _low_resolution(source, factor: int, *, workers: int, progress: bool) -> np.ndarray:
+    """Every frame block-averaged by ``factor`` (NaN filled), (T, Y', X') float32.
+
+    Forked workers read spans of the file themselves when the source allows it.
+    """
+    n = source.n_frames
+    step = max(int(getattr(source, "chunk_frames", 64)), 1)
+    spans = [(i, min(i + step, n)) for i in range(0, n, step)]
+    parallel = workers > 1 and bool(getattr(source, "readable_in_forks", False))
+    low = np.empty((n, source.shape[0] // factor, source.shape[1] // factor), dtype=np.float32)
+    _JOB.update(source=source, factor=factor)
+    try:
+        with progress_bar(total=n, desc="finding rest frames", enabled=progress) as bar:
+            results = fork_imap(_low_resolution_span, spans, workers=workers if parallel else 1)
+            for (start, stop), part in zip(spans, results, strict=True):
+                low[start:stop] = part
+                bar.update(stop - start)
+    finally:
+        _JOB.clear()
+    return low
+
+
+def _phase_shifts(span: tuple[int, int]) -> np.ndarray:
+    low, ref, window = _JOB["low"], _JOB["ref"], _JOB["window"]
+    return np.array([_phase_shift(ref, low[t], window) for t in range(*span)]).reshape(-1, 2)
+
+
+def _aligned_and_deviation(span: tuple[int, int]) -> tuple[np.ndarray, np.ndarray]:
+    """Frames of a span aligned (when drifting) and levelled, and their deviation (nm)."""
+    low, ref, shifts = _JOB["low"], _JOB["ref"], _JOB["shifts"]
+    start, stop = span
+    drifting = _JOB["drifting"]
+    part = np.stack(
+        [shift_image(low[t], -shifts[t]) if drifting else low[t] for t in range(start, stop)]
+    )
+    part = _JOB["leveller"].level_stack(part)
+    inner = (part - ref)[:, 2:-2, 2:-2]
+    return part, np.sqrt(np.mean(inner**2, axis=(1, 2)))
+
+
 def estimate_rest_template(
     source,
     *,
@@ -312,6 +374,7 @@ def estimate_rest_template(
     refresh_s: float = 0.0,
     times_s: np.ndarray | None = None,
     max_lowres_mb: float = 32.0,
+    workers: int = 1,
     progress: bool = False,
 ) -> RestTemplate:
     """Find the resting frames of a recording and average them into a rest template.
@@ -337,6 +400,10 @@ def estimate_rest_template(
     max_lowres_mb : float
         Upper bound of the block-averaged stack kept by the cheap pass; long recordings are
         block-averaged more coarsely to stay below it.
+    workers : int
+        Forked worker processes (Linux) for the cheap pass: reading (where the source allows
+        forked reads), phase correlation and levelling of spans of frames; 1 runs here. The
+        result is the same either way.
     progress : bool
         Show a progress bar.
 
@@ -366,12 +433,7 @@ def estimate_rest_template(
         and min(ny, nx) // (factor + 1) >= 8
     ):
         factor += 1
-    low = np.empty((source.n_frames, ny // factor, nx // factor), dtype=np.float32)
-    with progress_bar(total=source.n_frames, desc="finding rest frames", enabled=progress) as bar:
-        for i0, block in source.chunks():
-            for k, frame in enumerate(block):
-                low[i0 + k] = _filled(block_mean(frame, factor))
-            bar.update(len(block))
+    low = _low_resolution(source, factor, workers=workers, progress=progress)
     n = low.shape[0]
     if not np.isfinite(low).any():
         name = getattr(getattr(source, "recording", None), "source", "the recording")
@@ -384,13 +446,13 @@ def estimate_rest_template(
     shifts = np.zeros((n, 2))
     deviation = np.zeros(n)
     rest = np.ones(n, dtype=bool)
+    spans = _spans(n, max(1, int(workers)) * 4)
     for iteration in range(3):
         # a plane (3 numbers) is pinned by a thousand pixels to ~3 % of the noise of one,
         # far below the deviations compared here; more pixels only cost time
         leveller = PlaneLeveller(ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS)
-        aligned = np.empty_like(low)
-        for t in range(n):
-            shifts[t] = _phase_shift(ref, low[t], window)
+        _JOB.update(low=low, ref=ref, window=window, leveller=leveller)
+        shifts = np.concatenate(list(fork_imap(_phase_shifts, spans, workers=workers)))
         # stage drift is slow: a running median takes out the estimation noise (and the
         # brief apparent shift of a contraction), which would otherwise read as motion
         shifts = _smooth_shifts(shifts)
@@ -404,13 +466,11 @@ def estimate_rest_template(
         drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
         if not drifting:
             shifts[:] = 0.0
-        for t in range(n):
-            aligned[t] = shift_image(low[t], -shifts[t]) if drifting else low[t]
-        for t0 in range(0, n, _LEVEL_BATCH):
-            part = slice(t0, min(t0 + _LEVEL_BATCH, n))
-            aligned[part] = leveller.level_stack(aligned[part])
-            inner = (aligned[part] - ref)[:, 2:-2, 2:-2]
-            deviation[part] = np.sqrt(np.mean(inner**2, axis=(1, 2)))
+        _JOB.update(shifts=shifts, drifting=drifting)
+        parts = list(fork_imap(_aligned_and_deviation, spans, workers=workers))
+        _JOB.clear()
+        aligned = np.concatenate([part for part, _ in parts])
+        deviation = np.concatenate([dev for _, dev in parts])
         if iteration == 0:
             # the temporal median is a partly contracted state when beats fill most of the
             # time; start from the relaxed end of the main activity axis instead

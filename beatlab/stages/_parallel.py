@@ -11,15 +11,15 @@ left (the drift, the patterns).
 from __future__ import annotations
 
 import multiprocessing as mp
-import sys
 from collections import deque
-from collections.abc import Callable, Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
-from contextlib import contextmanager
 
 import numpy as np
 
-__all__ = ["PARALLEL_MODES", "FrameMapper", "can_fork", "fork_map"]
+from beatlab._fork import can_fork, fork_imap, fork_map, single_threaded_libraries
+
+__all__ = ["PARALLEL_MODES", "FrameMapper", "can_fork", "fork_imap", "fork_map"]
 
 #: How frames are spread over workers.
 PARALLEL_MODES = ("auto", "processes", "threads")
@@ -30,53 +30,11 @@ _ACTIVE = None
 _READER = None
 
 
-def can_fork() -> bool:
-    """Whether worker processes may be forked here: Linux only (on macOS, forking a process
-    that has used system frameworks is unsafe; elsewhere there is no fork)."""
-    return sys.platform.startswith("linux") and "fork" in mp.get_all_start_methods()
-
-
 def _call(method: str, indices: np.ndarray, frames: np.ndarray | None) -> list:
     if frames is None:  # the worker reads its frames itself
         frames = _READER(indices)
     fn = getattr(_ACTIVE, method)
     return [fn(int(i), f) for i, f in zip(indices, frames, strict=True)]
-
-
-@contextmanager
-def _opencv_single_threaded():
-    """OpenCV and BLAS run inline (no thread pools) here and in processes forked meanwhile.
-
-    A forked child has none of the parent's OpenCV pool threads; any call that reconfigures
-    or wakes that pool would wait for them forever (seen: ``cv2.setNumThreads`` in a child
-    hung). With one thread set *before* the fork, children never touch the pool, and the
-    workers fill the cores anyway.
-    """
-    import cv2
-    from threadpoolctl import threadpool_limits
-
-    before = cv2.getNumThreads()
-    cv2.setNumThreads(1)
-    try:
-        # BLAS too: the workers fill the cores, and a BLAS pool in each would oversubscribe
-        with threadpool_limits(limits=1):
-            yield
-    finally:
-        cv2.setNumThreads(before)
-
-
-def fork_map(function: Callable, items: Sequence, *, workers: int) -> list:
-    """``[function(item) for item in items]``, in up to `workers` forked processes on Linux.
-
-    `function` must be a module-level function (children find it by name) and its results
-    picklable; children inherit everything else, so `function` may read state the parent set
-    before calling. One process, or no fork: in this process.
-    """
-    processes = min(int(workers), len(items))
-    if processes <= 1 or not can_fork():
-        return [function(item) for item in items]
-    with _opencv_single_threaded(), mp.get_context("fork").Pool(processes) as pool:
-        return pool.map(function, items, chunksize=1)
 
 
 class FrameMapper:
@@ -132,7 +90,7 @@ class FrameMapper:
         try:
             context = mp.get_context("fork")
             with (
-                _opencv_single_threaded(),
+                single_threaded_libraries(),
                 ProcessPoolExecutor(max_workers=self.workers, mp_context=context) as pool,
             ):
                 pending: deque = deque()

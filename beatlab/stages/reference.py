@@ -151,6 +151,7 @@ def prepare_reference(
     times_s: np.ndarray,
     settings: Settings,
     regions: str | os.PathLike | np.ndarray | None = None,
+    workers: int | None = None,
     progress: bool = False,
 ) -> Reference:
     """First pass: rest template, cell mask, region labels, drift pixels and flow scale.
@@ -166,6 +167,8 @@ def prepare_reference(
         (the region split keeps only parts that beat by the user's detection settings).
     regions : path-like or ndarray (Y, X) of int, optional
         A user label image; replaces the automatic clusters.
+    workers : int, optional
+        Forked workers of the rest pass (default: CPUs, at most 4; 1 runs in this process).
     progress : bool
         Show a progress bar for the pass.
 
@@ -187,6 +190,7 @@ def prepare_reference(
         level_tilt=t.level_tilt,
         refresh_s=t.refresh_s,
         times_s=times_s,
+        workers=workers or min(4, os.cpu_count() or 1),
         progress=progress,
     )
     template = rest.template

@@ -81,3 +81,23 @@ def test_workers_can_read_their_own_frames(mode, workers):
     np.testing.assert_allclose([v for _, v in got], frames.sum(axis=(1, 2)))
     forked = mode == "auto" and workers > 1 and can_fork()
     assert (reads == []) == forked  # forked workers read in their own processes
+
+
+def _warn_and_square(x):
+    if x == 2:
+        import warnings
+
+        from beatlab.errors import BeatlabWarning
+
+        warnings.warn(f"item {x} is odd", BeatlabWarning, stacklevel=1)
+    return x * x
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_fork_map_keeps_order_and_passes_warnings_back(workers):
+    from beatlab._fork import fork_imap, fork_map
+    from beatlab.errors import BeatlabWarning
+
+    with pytest.warns(BeatlabWarning, match="item 2 is odd"):
+        assert fork_map(_warn_and_square, [1, 2, 3, 4], workers=workers) == [1, 4, 9, 16]
+    assert list(fork_imap(_warn_and_square, [3, 1], workers=workers)) == [9, 1]

@@ -167,3 +167,16 @@ def test_relaxed_end_holds_when_relaxation_ends_abruptly():
     relaxed, contracted = a < 0.05, a > 0.95
     assert score[relaxed].max() < 0.1 * score.max()
     assert score[contracted].min() > 0.9 * score.max()
+
+
+def test_forked_rest_pass_gives_the_same_template_as_one_process():
+    """Reading, phase correlation and levelling spread over forked workers (in spans) give
+    exactly the one-process result: every frame's work is independent of the others'."""
+    sim = simulate_recording(
+        duration_s=4, fps=25, shape_px=(96, 96), rate_bpm=60, stage_drift_um=(1.0, -1.5), rng=4
+    )
+    source = OPDSource(as_recording(sim), chunk_frames=16)
+    one = estimate_rest_template(source, workers=1)
+    two = estimate_rest_template(source, workers=2)
+    for name in ("template", "rest", "deviation", "shifts_px", "noise_var", "activity"):
+        np.testing.assert_array_equal(getattr(one, name), getattr(two, name), err_msg=name)

@@ -1,0 +1,80 @@
+"""Forked worker processes on Linux: map a function over items, warnings passed back.
+
+Low-level (no beatlab imports), so that any stage or signal module may spread work over the
+cores: children inherit the parent's state at the fork, receive small items and return
+picklable results.
+"""
+
+from __future__ import annotations
+
+import multiprocessing as mp
+import sys
+import warnings
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+
+__all__ = ["can_fork", "fork_imap", "fork_map", "single_threaded_libraries"]
+
+
+def can_fork() -> bool:
+    """Whether worker processes may be forked here: Linux only (on macOS, forking a process
+    that has used system frameworks is unsafe; elsewhere there is no fork)."""
+    return sys.platform.startswith("linux") and "fork" in mp.get_all_start_methods()
+
+
+@contextmanager
+def single_threaded_libraries():
+    """OpenCV and BLAS run inline (no thread pools) here and in processes forked meanwhile.
+
+    A forked child has none of the parent's OpenCV pool threads; any call that reconfigures
+    or wakes that pool would wait for them forever (seen: ``cv2.setNumThreads`` in a child
+    hung). With one thread set *before* the fork, children never touch the pool, and the
+    workers fill the cores anyway.
+    """
+    import cv2
+    from threadpoolctl import threadpool_limits
+
+    before = cv2.getNumThreads()
+    cv2.setNumThreads(1)
+    try:
+        # BLAS too: the workers fill the cores, and a BLAS pool in each would oversubscribe
+        with threadpool_limits(limits=1):
+            yield
+    finally:
+        cv2.setNumThreads(before)
+
+
+def _keeping_warnings(job: tuple) -> tuple:
+    """Run ``function(item)`` in a forked child; return its result and its warnings."""
+    function, item = job
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = function(item)
+    return result, [(w.category, str(w.message)) for w in caught]
+
+
+def fork_imap(function: Callable, items: Sequence, *, workers: int) -> Iterator:
+    """``function(item)`` for each item, in order, from up to `workers` forked processes.
+
+    `function` must be a module-level function (children find it by name) and its results
+    picklable; children inherit everything else, so `function` may read state the parent set
+    before calling. Warnings a child raises are raised again here (once the item is done),
+    so that callers recording warnings see them. One process, or no fork: in this process.
+    """
+    processes = min(int(workers), len(items))
+    if processes <= 1 or not can_fork():
+        for item in items:
+            yield function(item)
+        return
+    jobs = [(function, item) for item in items]
+    with single_threaded_libraries(), mp.get_context("fork").Pool(processes) as pool:
+        for result, raised in pool.imap(_keeping_warnings, jobs, chunksize=1):
+            for category, message in raised:
+                warnings.warn(message, category, stacklevel=2)
+            yield result
+
+
+def fork_map(function: Callable, items: Sequence, *, workers: int) -> list:
+    """``[function(item) for item in items]``, in up to `workers` forked processes on Linux
+    (:func:`fork_imap`)."""
+    return list(fork_imap(function, items, workers=workers))
