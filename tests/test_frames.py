@@ -110,6 +110,6 @@ def test_select_indices_and_frames_at_read_what_select_chunks_reads():
     lazy = list(src.select_indices(keep))
     assert [i.tolist() for i, _ in lazy] == [i.tolist() for i, _ in chunks]
     assert all(f is None for _, f in lazy)
-    for (idx, expected), (same, _) in zip(chunks, lazy, strict=True):
+    for (_, expected), (same, _) in zip(chunks, lazy, strict=True):
         np.testing.assert_array_equal(src.frames_at(same), expected)
     assert src.readable_in_forks  # an array in memory

@@ -19,7 +19,7 @@ import numba
 import numpy as np
 from scipy import ndimage as ndi
 
-__all__ = ["PAD_PX", "spline_coefficients", "warp_cubic"]
+__all__ = ["PAD_PX", "prepare_warp", "spline_coefficients", "warp_cubic"]
 
 #: Edge-extension (px) of the coefficient image: displaced positions beyond it are clamped
 #: (the extended image is constant there, so nothing changes).
@@ -102,3 +102,12 @@ def warp_cubic(coeffs: np.ndarray, flow: np.ndarray) -> np.ndarray:
         np.ascontiguousarray(field[..., 0]),
         out,
     )
+
+
+def prepare_warp() -> None:
+    """Compile (or load from numba's cache) the warp now, in this process.
+
+    Worker processes forked afterwards inherit the compiled code; otherwise every worker of
+    every round would load it again on its first frame.
+    """
+    warp_cubic(spline_coefficients(np.zeros((4, 4))), np.zeros((4, 4, 2), dtype=np.float32))

@@ -18,7 +18,7 @@ from typing import NamedTuple
 import cv2
 import numpy as np
 
-from beatlab.signals._cubic_warp import spline_coefficients, warp_cubic
+from beatlab.signals._cubic_warp import prepare_warp, spline_coefficients, warp_cubic
 
 __all__ = ["ReferenceBasis", "gaussian_window", "prepare_reference", "refine_with_basis"]
 
@@ -58,6 +58,7 @@ def prepare_reference(
             f"brightness must be one of {', '.join(BRIGHTNESS_MODELS)}, got {brightness!r}"
         )
     ref = np.ascontiguousarray(reference, dtype=np.float32)
+    prepare_warp()  # before any worker forks: they inherit the compiled warp
     grad_y, grad_x = np.gradient(ref)
     basis = [np.ascontiguousarray(grad_x, np.float32), np.ascontiguousarray(grad_y, np.float32)]
     if brightness == "affine":

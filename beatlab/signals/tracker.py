@@ -240,8 +240,9 @@ class FlowTracker:
                 f"frame_nm must have the template shape {self._template_nm.shape}, got "
                 f"{frame.shape}; pass frames of the same recording"
             )
-        finite = np.isfinite(frame)
-        filled = np.where(finite, frame, self._template_nm)
+        complete = bool(np.isfinite(frame.sum()))  # the usual case: no NaN pixel to fill
+        finite = None if complete else np.isfinite(frame)
+        filled = frame if complete else np.where(finite, frame, self._template_nm)
         moving_u8, clipped = to_uint8(filled, self.scale)
         flow = FLOW_METHODS[self.method](self.template_u8, moving_u8, preset=self.preset)
         region = self._region
@@ -251,7 +252,8 @@ class FlowTracker:
             flow[region],
             iterations=self.refine_iterations,
         )
-        flow[~finite] = np.nan
+        if not complete:
+            flow[~finite] = np.nan
         estimate = (
             estimate_rigid_shift(flow, background=self.background)
             if estimate_shift or rigid_shift_px is None
@@ -261,7 +263,7 @@ class FlowTracker:
         if shift.shape != (2,):
             raise InputError(f"rigid_shift_px must have shape (2,), got {shift.shape}; (dx, dy)")
         flow -= shift.astype(np.float32)
-        mask = self.mask & finite
+        mask = self.mask if complete else self.mask & finite
         value = (
             mean_displacement_um(flow, mask, pixel_size_um=self.pixel_size_um)
             if mean_magnitude and mask.any()

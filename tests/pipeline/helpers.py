@@ -36,7 +36,7 @@ def as_recording(sim, frames=None, kind=None):
 def run(sim, config=None, **kwargs):
     from beatlab.pipeline import analyze
 
-    return analyze(as_recording(sim), config, **kwargs)
+    return analyze(as_recording(sim), config, **{"workers": 1, **kwargs})
 
 
 def match_beats(found: pd.DataFrame, truth: list[dict]) -> pd.DataFrame:

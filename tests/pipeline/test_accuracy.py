@@ -213,7 +213,7 @@ def test_negative_cells_warn():
 
     sim = simulate_recording(duration_s=3, fps=15, shape_px=(64, 64), rate_bpm=0, rng=1)
     with pytest.warns(BeatlabWarning, match="negative OPD"):
-        analyze(as_recording(sim, frames=-sim.frames))
+        analyze(as_recording(sim, frames=-sim.frames), workers=1)
 
 
 def test_literal_linear_landmarks_are_available_and_more_biased_at_15_fps():
@@ -240,7 +240,7 @@ def test_one_sheet_with_two_independent_halves_is_split():
     right = simulate_recording(rate_bpm=65, **common)
     frames = left.frames.copy()
     frames[:, :, 48:] = right.frames[:, :, 48:]
-    res = analyze(as_recording(left, frames=frames))
+    res = analyze(as_recording(left, frames=frames), workers=1)
     assert res.summary["n_regions"] == 2
     rates = sorted(res.regions["beat_rate_bpm"])
     truth = sorted(s.truth["summary"]["beat_rate_bpm"] for s in (left, right))

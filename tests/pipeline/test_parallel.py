@@ -75,8 +75,8 @@ def test_workers_can_read_their_own_frames(mode, workers):
 
     work = _Work()
     chunks = ((idx, None) for idx, _ in _chunks(frames, 5))
-    got = [r for _, rs in FrameMapper(workers, mode=mode).run(work, "total", chunks,
-                                                                reader=reader) for r in rs]  # fmt: skip
+    mapper = FrameMapper(workers, mode=mode)
+    got = [r for _, rs in mapper.run(work, "total", chunks, reader=reader) for r in rs]
     assert [i for i, _ in got] == list(range(17))
     np.testing.assert_allclose([v for _, v in got], frames.sum(axis=(1, 2)))
     forked = mode == "auto" and workers > 1 and can_fork()

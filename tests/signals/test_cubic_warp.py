@@ -71,3 +71,10 @@ def test_wrong_flow_shape_is_refused():
     image, flow = _scene()
     with pytest.raises(ValueError, match="flow must have shape"):
         warp_cubic(spline_coefficients(image), flow[:-1])
+
+
+def test_prepare_warp_compiles_in_this_process():
+    from beatlab.signals._cubic_warp import _warp, prepare_warp
+
+    prepare_warp()
+    assert _warp.signatures  # compiled here: forked workers inherit it
