@@ -1,11 +1,12 @@
 """Mapping per-frame work over a recording: in this process, in threads, or in forked processes.
 
-The per-frame pass spends most of its time in scipy.ndimage (the flow refinement's cubic-spline
-warp), which holds the GIL: threads barely overlap there (measured: one thread 6.0 s, two
-5.4 s for the same 409 frames). Forked processes do: each inherits the work object (templates,
-trackers, patterns) at the fork, receives frames and returns a few numbers per frame. A new
-pool is forked for every round, so each round's workers see the state the previous rounds
-left (the drift, the patterns).
+Much of the per-frame pass is Python and numpy glue between library calls, which holds the
+GIL: threads overlap poorly (measured before the warp was compiled: one thread 6.0 s, two
+5.4 s for the same 409 frames). Forked processes do: each inherits the work object
+(templates, trackers, patterns) at the fork, receives frame indices (and reads those frames
+itself where the source allows it) or frames, and returns a few numbers per frame. A new pool
+is forked for every round, so each round's workers see the state the previous rounds left
+(the drift, the patterns).
 """
 
 from __future__ import annotations
