@@ -80,10 +80,12 @@ def accuracy(found: pd.DataFrame, truth: pd.DataFrame) -> dict:
 def simulate(tmp: Path, *, size: int, frames: int, fps: float, seed: int) -> Path:
     from beatlab.synth import simulate_recording, write_simulation
 
+    path = tmp / f"bench_{size}_{frames}_{fps:g}_{seed}.ome.tif"
+    if path.exists() and path.with_name(path.name[:-8] + ".truth.json").exists():
+        return path  # simulated by an earlier run into --data
     sim = simulate_recording(
         duration_s=frames / fps, fps=fps, shape_px=(size, size), rate_bpm=72, rng=seed
     )
-    path = tmp / f"bench_{size}_{frames}.ome.tif"
     write_simulation(sim, path)
     return path
 
@@ -132,6 +134,11 @@ def main() -> None:
     parser.add_argument("--runs", type=int, default=2, help="alternating runs of each")
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--quick", action="store_true", help="256 px, 300 frames, one run")
+    parser.add_argument(
+        "--data",
+        type=Path,
+        help="keep the simulated recordings in this folder and reuse them in later runs",
+    )
     args = parser.parse_args()
     if args.quick:
         args.size, args.frames, args.runs = 256, [300], 1
@@ -139,10 +146,13 @@ def main() -> None:
     rows = []
     with tempfile.TemporaryDirectory() as tmp_name:
         tmp = Path(tmp_name)
+        data = args.data or tmp
+        data.mkdir(parents=True, exist_ok=True)
         for frames in args.frames:
-            path = simulate(tmp, size=args.size, frames=frames, fps=args.fps, seed=args.seed)
+            path = simulate(data, size=args.size, frames=frames, fps=args.fps, seed=args.seed)
             rows.append(one_length(tmp, path, fps=args.fps, pixel_um=pixel_um, runs=args.runs))
-            path.unlink()
+            if args.data is None:
+                path.unlink()
     print(f"\n{args.size} x {args.size} px, {args.fps:g} fps, median of {args.runs} run(s)")
     print(
         f"{'frames':>6} {'method':>8} {'frames/s':>9} {'ratio':>6} {'anon MB':>8} {'beats':>7} "
