@@ -85,6 +85,9 @@ FIGURES = {
 """The figures of one recording, by file stem, in the order they are written."""
 
 
+#: The order the figures are handed to the workers: the costliest first.
+_DRAW_FIRST = ("maps", "trace", "poincare", "regions", "average_beat")
+
 # What the forked workers of save_recording_figures draw (set just before they fork).
 _JOB: tuple | None = None
 
@@ -153,7 +156,9 @@ def save_recording_figures(
     out.mkdir(parents=True, exist_ok=True)
     _JOB = (analysis, out, tuple(formats))
     try:
-        fork_map(_save_one, list(FIGURES), workers=workers)
+        # the costliest first (measured: maps ~2 s, trace ~1.2 s of one core), so that the
+        # workers finish together
+        fork_map(_save_one, sorted(FIGURES, key=_DRAW_FIRST.index), workers=workers)
     finally:
         _JOB = None
     paths: dict[str, Path] = {}
