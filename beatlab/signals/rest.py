@@ -467,10 +467,13 @@ def estimate_rest_template(
         if not drifting:
             shifts[:] = 0.0
         _JOB.update(shifts=shifts, drifting=drifting)
-        parts = list(fork_imap(_aligned_and_deviation, spans, workers=workers))
+        # each span written in place as it arrives: memory stays that of one stack
+        aligned = np.empty_like(low)
+        parts = fork_imap(_aligned_and_deviation, spans, workers=workers)
+        for (start, stop), (part, dev) in zip(spans, parts, strict=True):
+            aligned[start:stop] = part
+            deviation[start:stop] = dev
         _JOB.clear()
-        aligned = np.concatenate([part for part, _ in parts])
-        deviation = np.concatenate([dev for _, dev in parts])
         if iteration == 0:
             # the temporal median is a partly contracted state when beats fill most of the
             # time; start from the relaxed end of the main activity axis instead
