@@ -24,6 +24,7 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import sparse
 
 from beatlab._progress import progress_bar
 from beatlab.errors import BeatlabWarning, InputError
@@ -434,20 +435,28 @@ class _FrameWork:
         )
 
 
+#: Map tiles projected at a time: the (frames x tiles) temporaries of a long recording stay
+#: a few MB instead of several copies of the whole table.
+_TILE_BLOCK = 64
+
+
 def _group_traces(sums, cells, rest, segment, finite):
     """Mask displacement and OPD, tile and label displacement (px, nm): 0 at rest, NaN where
-    a frame has no finite pixel."""
-    traces = [
-        zero_at_rest(t, rest.rest, segment)
-        for t in (
-            *project_groups(sums, cells.families["mask"]),
-            project_groups(sums, cells.families["tiles"])[0],
-            project_groups(sums, cells.families["labels"])[0],
-        )
-    ]
-    for trace in traces:
-        trace[~finite] = np.nan
-    return traces
+    a frame has no finite pixel. The tile traces are float32 (what the maps keep)."""
+
+    def at_rest(trace):
+        out = zero_at_rest(trace, rest.rest, segment)
+        out[~finite] = np.nan
+        return out
+
+    mask_disp, mask_opd = (at_rest(t) for t in project_groups(sums, cells.families["mask"]))
+    label_disp = at_rest(project_groups(sums, cells.families["labels"])[0])
+    tiles = sparse.csc_matrix(cells.families["tiles"])
+    tile_disp = np.empty((finite.size, tiles.shape[1]), dtype=np.float32)
+    for start in range(0, tiles.shape[1], _TILE_BLOCK):
+        block = slice(start, start + _TILE_BLOCK)
+        tile_disp[:, block] = at_rest(project_groups(sums, tiles[:, block])[0])
+    return mask_disp, mask_opd, tile_disp, label_disp
 
 
 def measure_frames(
