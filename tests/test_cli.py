@@ -18,6 +18,20 @@ def _run(*args):
     )
 
 
+def _main(capsys, *args):
+    """``beatlab ARGS`` in this process: (exit code, stderr).
+
+    The refusals below need no process of their own (each would spend about 3 s importing);
+    a real process's exit code and stderr are checked in tests/test_bad_inputs.py
+    (test_real_process_exit_2_one_line, test_real_process_exit_1_without_traceback).
+    """
+    try:
+        code = main(list(args))
+    except SystemExit as exc:  # argparse usage errors
+        code = exc.code
+    return code, capsys.readouterr().err
+
+
 def test_help_lists_subcommands():
     out = _run("--help")
     assert out.returncode == 0
@@ -114,48 +128,49 @@ def test_quiescent_exits_zero(tmp_path, capsys):
     assert summary["rhythm"] == "quiescent" and summary["beat_rate_bpm"] == 0
 
 
-def test_missing_metadata_names_the_flag(tmp_path):
+def test_missing_metadata_names_the_flag(tmp_path, capsys):
     path = tmp_path / "plain.npy"
     np.save(path, np.zeros((20, 32, 32), np.float32))
-    out = _run("analyze", str(path))
-    assert out.returncode == 2
-    lines = out.stderr.strip().splitlines()
+    code, err = _main(capsys, "analyze", str(path))
+    assert code == 2
+    lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("beatlab: error:")
     assert "--fps" in lines[0]
-    assert "Traceback" not in out.stderr
+    assert "Traceback" not in err
 
 
-def test_unreadable_and_bad_usage(tmp_path):
+def test_unreadable_and_bad_usage(tmp_path, capsys):
     bad = tmp_path / "bad.tif"
     bad.write_bytes(b"nonsense")
-    out = _run("analyze", str(bad))
-    assert out.returncode == 2 and "cannot be read" in out.stderr
-    out = _run("analyze", str(tmp_path / "nope.tif"))
-    assert out.returncode == 2 and "no such file" in out.stderr
-    out = _run("analyze")
-    assert out.returncode == 2
-    out = _run("analyze", str(bad), "--fps", "-1")
-    assert out.returncode == 2 and "must be positive" in out.stderr
+    code, err = _main(capsys, "analyze", str(bad))
+    assert code == 2 and "cannot be read" in err
+    code, err = _main(capsys, "analyze", str(tmp_path / "nope.tif"))
+    assert code == 2 and "no such file" in err
+    code, _ = _main(capsys, "analyze")
+    assert code == 2
+    code, err = _main(capsys, "analyze", str(bad), "--fps", "-1")
+    assert code == 2 and "must be positive" in err
 
 
-def test_too_short_and_all_nan(tmp_path):
+def test_too_short_and_all_nan(tmp_path, capsys):
     short = tmp_path / "short.npy"
     np.save(short, np.zeros((3, 32, 32), np.float32))
-    out = _run("analyze", str(short), "--fps", "30", "--pixel-size-um", "0.5")
-    assert out.returncode == 2 and "frames" in out.stderr
+    code, err = _main(capsys, "analyze", str(short), "--fps", "30", "--pixel-size-um", "0.5")
+    assert code == 2 and "frames" in err
     nan = tmp_path / "nan.npy"
     np.save(nan, np.full((20, 32, 32), np.nan, np.float32))
-    out = _run("analyze", str(nan), "--fps", "30", "--pixel-size-um", "0.5")
-    assert out.returncode == 2 and "NaN" in out.stderr
+    code, err = _main(capsys, "analyze", str(nan), "--fps", "30", "--pixel-size-um", "0.5")
+    assert code == 2 and "NaN" in err
 
 
-def test_bad_config_key(tmp_path):
+def test_bad_config_key(tmp_path, capsys):
     cfg = tmp_path / "c.toml"
     cfg.write_text("[beats]\nmin_snr_typo = 3\n")
     path = tmp_path / "z.npy"
     np.save(path, np.zeros((20, 32, 32), np.float32))
-    out = _run("analyze", str(path), "--fps", "30", "--pixel-size-um", "0.5", "--config", str(cfg))
-    assert out.returncode == 2 and "beats.min_snr_typo" in out.stderr
+    argv = ["analyze", str(path), "--fps", "30", "--pixel-size-um", "0.5", "--config", str(cfg)]
+    code, err = _main(capsys, *argv)
+    assert code == 2 and "beats.min_snr_typo" in err
 
 
 def test_help_shows_defaults_and_explains_reconstruct(capsys):

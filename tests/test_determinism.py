@@ -4,7 +4,9 @@ Two runs in one process, and one run with two workers for the per-frame pass, mu
 same bytes into every file of ``Analysis.save(dir, figures=False)``: each CSV, summary.json
 and maps.npz (numpy's savez gives its zip members a fixed date, so the container carries no
 write time either). Nothing is excluded: no output table or summary key depends on the time,
-the machine or the worker count.
+the machine or the worker count. A second recording (a stage drift, two regions beating on
+their own) takes the forked workers through the drift and per-region rounds too; the other
+end-to-end tests analyse in one process on the strength of these checks.
 """
 
 from __future__ import annotations
@@ -45,9 +47,39 @@ def _files(folder: Path) -> dict[str, Path]:
     return {p.relative_to(folder).as_posix(): p for p in sorted(folder.rglob("*")) if p.is_file()}
 
 
+@pytest.fixture(scope="module")
+def drifting_outputs(tmp_path_factory):
+    """A drifting recording with two clusters at 96 and 60 bpm, saved serial and 2 workers."""
+    sim = simulate_recording(
+        shape_px=(80, 80), duration_s=4, fps=20, n_clusters=2, cluster_rates_bpm=(60.0, 96.0),
+        stage_drift_um=(1.0, -0.8), rng=12,
+    )  # fmt: skip
+    path = write_simulation(sim, tmp_path_factory.mktemp("drifting") / "rec.ome.tif")
+    folders = {}
+    for name, workers in (("first", 1), ("two_workers", 2)):
+        folder = tmp_path_factory.mktemp(f"drifting_{name}")
+        beatlab.analyze(path["recording"], workers=workers).save(folder, figures=False)
+        folders[name] = folder
+    return folders
+
+
 @pytest.mark.parametrize("other", ["second", "two_workers"])
 def test_outputs_are_byte_identical(outputs, other):
-    first, second = _files(outputs["first"]), _files(outputs[other])
+    _assert_same_bytes(outputs["first"], outputs[other])
+
+
+def test_forked_workers_write_the_same_bytes_through_drift_and_regions(drifting_outputs):
+    first = drifting_outputs["first"]
+    summary = json.loads((first / "summary.json").read_text())
+    # the scene takes the paths meant: drift interpolated between resting frames, two regions
+    assert summary["quality"]["drift_reference"] == "cell median at rest frames, interpolated"
+    assert summary["n_regions"] == 2
+    assert (first / "region_beats.csv").read_text().count("\n") > 5
+    _assert_same_bytes(first, drifting_outputs["two_workers"])
+
+
+def _assert_same_bytes(first_folder: Path, other_folder: Path):
+    first, second = _files(first_folder), _files(other_folder)
     assert sorted(first) == sorted(second)
     tables = [name for name in first if name.endswith(".csv")]
     assert {"beats.csv", "trace.csv", "average_beat.csv"} <= set(tables)

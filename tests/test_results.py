@@ -8,7 +8,7 @@ import beatlab
 from beatlab import schema
 from beatlab.errors import BeatlabWarning, InputError
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording
+from tests.pipeline.helpers import analyze_here, as_recording
 
 
 @pytest.fixture(scope="module")
@@ -19,7 +19,7 @@ def result():
         cluster_rates_bpm=[50, 80], rng=4,
     )  # fmt: skip
     with pytest.warns(BeatlabWarning, match="2 regions beat on their own"):
-        return beatlab.analyze(as_recording(sim))
+        return analyze_here(as_recording(sim))
 
 
 def test_outputs_follow_the_schema(result):
@@ -74,7 +74,7 @@ def test_to_row_is_one_flat_row_of_schema_columns(result):
 def test_warnings_are_results_and_still_raised():
     sim = simulate_recording(duration_s=3, fps=15, shape_px=(64, 64), rate_bpm=0, rng=1)
     with pytest.warns(BeatlabWarning, match="negative OPD") as record:
-        res = beatlab.analyze(as_recording(sim, frames=-sim.frames))
+        res = analyze_here(as_recording(sim, frames=-sim.frames))
     assert any("negative OPD" in w for w in res.summary["warnings"])
     assert res.warnings == res.summary["warnings"]
     assert res.to_row()["n_warnings"] == len(res.warnings) >= 1

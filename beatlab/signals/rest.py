@@ -99,9 +99,10 @@ class RestTemplate:
         return np.clip(np.searchsorted(starts, times_s, side="right") - 1, 0, len(starts) - 1)
 
 
-#: Low-resolution frames levelled together (bounds the temporaries of the vectorised fit).
-#: At most about this many pixels of a low-resolution frame enter its plane fit.
-_REST_LEVEL_PIXELS = 1024
+#: Every pixel of a low-resolution frame (``lowres_px`` = 64 gives 4096) enters its plane fit:
+#: fitting a quarter of them was measurably faster but changed which frames count as resting,
+#: and with them the trace (tests/pipeline/test_quality_checks.py).
+_REST_LEVEL_PIXELS = 1 << 16
 
 
 def _shift_ramp(freq: np.ndarray, shift: float, *, nyquist: int | None) -> np.ndarray:
@@ -448,8 +449,6 @@ def estimate_rest_template(
     rest = np.ones(n, dtype=bool)
     spans = _spans(n, max(1, int(workers)) * 4)
     for iteration in range(3):
-        # a plane (3 numbers) is pinned by a thousand pixels to ~3 % of the noise of one,
-        # far below the deviations compared here; more pixels only cost time
         leveller = PlaneLeveller(ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS)
         _JOB.update(low=low, ref=ref, window=window, leveller=leveller)
         shifts = np.concatenate(list(fork_imap(_phase_shifts, spans, workers=workers)))

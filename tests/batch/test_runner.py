@@ -253,6 +253,11 @@ def test_worker_keeps_warnings_in_the_row_and_turns_failures_into_one_line(tmp_p
 # --- compare ------------------------------------------------------------------------------
 
 
+#: Tables only, as QUICK: the figures and report that compare redraws by default are drawn in
+#: test_cli_batch.py (``beatlab compare``) and below for a batch without an ok recording.
+TABLES_ONLY = {"figures": False, "report": False}
+
+
 def _forbid_analysis(monkeypatch):
     def fail(*args, **kwargs):
         raise AssertionError("compare must not analyse")
@@ -265,7 +270,7 @@ def test_compare_rewrites_the_statistics_without_analysing(reference, tmp_path, 
     out = _copy(reference[1], tmp_path)
     for name in STATISTICS:
         (out / f"{name}.csv").unlink()
-    result = compare_batch(out)
+    result = compare_batch(out, **TABLES_ONLY)
     _same_files(reference[1], out)
     pd.testing.assert_frame_equal(result.groups, reference[0].groups)
     assert result.counts["analysed"] == 0
@@ -273,7 +278,7 @@ def test_compare_rewrites_the_statistics_without_analysing(reference, tmp_path, 
     table = pd.read_csv(out / "recordings.csv", dtype=object, keep_default_na=False)
     table.loc[table["well"] == "A4", "exclude"] = "True"
     table.to_csv(out / "recordings.csv", index=False)
-    edited = compare_batch(out)
+    edited = compare_batch(out, **TABLES_ONLY)
     assert edited.wells.set_index("well").loc["A4", "status"] == "excluded"
     assert edited.groups.set_index("metric").loc["beat_rate_bpm_norm", "n_wells"] == 1
 
@@ -283,14 +288,15 @@ def test_compare_rebuilds_an_interrupted_batch_from_its_cache(reference, tmp_pat
     out = _copy(reference[1], tmp_path)
     for name in TABLES:
         (out / f"{name}.csv").unlink()
-    result = compare_batch(out)
+    result = compare_batch(out, **TABLES_ONLY)
     assert result.counts["cached"] == 4
     _same_files(reference[1], out, names=("beats", "groups", "incidence"))  # wells: error text
     ok = result.recordings["status"] != "error"
     expected = reference[0].recordings
     pd.testing.assert_frame_equal(result.recordings[ok], expected[ok])
     assert result.recordings.loc[~ok, "error"].str.startswith("not analysed").all()
-    # another configuration has no cached results: nothing is analysed, nothing is ok
+    # another configuration has no cached results: nothing is analysed, nothing is ok (and
+    # the figures and report of a batch without one ok recording are still drawn)
     other = compare_batch(out, config={"beats": {"min_snr": 9.0}})
     assert other.counts == {"ok": 0, "error": 5, "excluded": 1, "analysed": 0, "cached": 0}
     assert json.loads((out / "batch.json").read_text())["config"]["beats"]["min_snr"] == 9.0

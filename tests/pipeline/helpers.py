@@ -1,5 +1,7 @@
 """Shared helpers (imported, not a conftest) for end-to-end tests on simulator truth."""
 
+from contextlib import contextmanager
+
 import numpy as np
 import pandas as pd
 
@@ -33,10 +35,39 @@ def as_recording(sim, frames=None, kind=None):
     )
 
 
-def run(sim, config=None, **kwargs):
+@contextmanager
+def one_library_thread():
+    """OpenCV and BLAS on one thread each inside, as in a batch worker with ``threads=1``."""
+    import cv2
+    from threadpoolctl import threadpool_limits
+
+    before = cv2.getNumThreads()
+    cv2.setNumThreads(1)
+    try:
+        with threadpool_limits(limits=1):
+            yield
+    finally:
+        cv2.setNumThreads(before)
+
+
+def analyze_here(recording, config=None, **kwargs):
+    """`beatlab.analyze` as a batch worker run with ``threads=1`` does it: the per-frame pass
+    in this process (``workers=1``), OpenCV and BLAS on one thread each.
+
+    For the tests of what an analysis finds. Forked workers and library threads give the same
+    bytes (tests/test_determinism.py) and, on frames this small, only cost CPU time, while
+    under pytest-xdist every core runs a test already (tests/pipeline/test_bias.py: 27 s of
+    CPU time with the library threads, 22 s without, and no faster with a core to spare).
+    """
     from beatlab.pipeline import analyze
 
-    return analyze(as_recording(sim), config, **{"workers": 1, **kwargs})
+    with one_library_thread():
+        return analyze(recording, config, **{"workers": 1, **kwargs})
+
+
+def run(sim, config=None, **kwargs):
+    """:func:`analyze_here` on the simulation in memory."""
+    return analyze_here(as_recording(sim), config, **kwargs)
 
 
 def match_beats(found: pd.DataFrame, truth: list[dict]) -> pd.DataFrame:

@@ -10,9 +10,8 @@ amplitude.
 import numpy as np
 import pytest
 
-import beatlab
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording, match_beats
+from tests.pipeline.helpers import analyze_here, as_recording, match_beats
 
 #: Same kinetics throughout (60 bpm, 150 ms rise, 300 ms relaxation), 50 fps, 6 s.
 SCENE = dict(duration_s=6, fps=50, shape_px=(96, 96), rate_bpm=60, rng=7)
@@ -20,7 +19,7 @@ SCENE = dict(duration_s=6, fps=50, shape_px=(96, 96), rate_bpm=60, rng=7)
 
 def _run(strain, noise_nm, **extra):
     sim = simulate_recording(strain=strain, noise_nm=noise_nm, **SCENE, **extra)
-    res = beatlab.analyze(as_recording(sim))
+    res = analyze_here(as_recording(sim))
     return sim, res
 
 

@@ -22,14 +22,13 @@ import pandas as pd
 import pytest
 from scipy import ndimage
 
-import beatlab
 from beatlab.errors import BeatlabWarning, InputError
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording, match_beats
+from tests.pipeline.helpers import analyze_here, as_recording, match_beats
 
 
 def _analyze(sim, config=None, *, frames=None, **kwargs):
-    return beatlab.analyze(as_recording(sim, frames=frames), config, **kwargs)
+    return analyze_here(as_recording(sim, frames=frames), config, **kwargs)
 
 
 # --------------------------------------------------------------------------------------------

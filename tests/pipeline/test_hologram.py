@@ -9,9 +9,8 @@ import tifffile
 from beatlab.cli import main
 from beatlab.errors import BeatlabWarning
 from beatlab.io import open_recording
-from beatlab.pipeline import analyze
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording, match_beats, run
+from tests.pipeline.helpers import analyze_here, as_recording, match_beats, run
 
 COMMON = dict(
     duration_s=5, fps=30, shape_px=(256, 256), pixel_size_um=0.2, rate_bpm=60, noise_nm=0.5, rng=21
@@ -21,7 +20,7 @@ COMMON = dict(
 def test_hologram_analysis_matches_opd_twin():
     holo = simulate_recording(kind="hologram", **COMMON)
     twin = simulate_recording(kind="opd", **COMMON)
-    a = analyze(as_recording(holo), reference=holo.reference_frames)
+    a = analyze_here(as_recording(holo), reference=holo.reference_frames)
     b = run(twin)
     truth = twin.truth["summary"]
     assert a.summary["beat_count"] == b.summary["beat_count"] == truth["beat_count"]
@@ -133,7 +132,7 @@ def test_a_grid_too_coarse_for_flow_is_flagged_not_passed_off():
         rate_bpm=60, noise_nm=0.5, rng=5,
     )  # fmt: skip
     with pytest.warns(BeatlabWarning, match="analysis grid is only"):
-        a = analyze(as_recording(holo), reference=holo.reference_frames)
+        a = analyze_here(as_recording(holo), reference=holo.reference_frames)
     assert min(a.summary["metadata"]["analysis_shape_px"]) < 32
     assert "coarse grid" in a.summary["quality"]["checks"]
     assert "(check: " in a.headline() and "coarse grid" in a.headline()
@@ -144,6 +143,6 @@ def test_simulated_holograms_at_the_defaults_analyse_correctly():
     # the simulator's defaults for holograms (256 px at 0.25 um) reconstruct onto a grid
     # fine enough for flow: the beats of the truth, nothing flagged
     holo = simulate_recording(kind="hologram", duration_s=5, fps=30, rate_bpm=60, rng=6)
-    a = analyze(as_recording(holo), reference=holo.reference_frames)
+    a = analyze_here(as_recording(holo), reference=holo.reference_frames)
     assert a.summary["beat_count"] == holo.truth["summary"]["beat_count"]
     assert a.summary["quality"]["checks"] == ""

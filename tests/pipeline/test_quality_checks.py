@@ -3,7 +3,6 @@
 import pytest
 
 from beatlab.errors import BeatlabWarning
-from beatlab.pipeline import analyze
 from beatlab.stages.summary import (
     MIN_GRID_PX,
     MIN_TRUSTED_SNR,
@@ -11,7 +10,7 @@ from beatlab.stages.summary import (
     quality_checks,
 )
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording
+from tests.pipeline.helpers import analyze_here, as_recording
 
 
 def test_each_check_and_its_threshold():
@@ -40,7 +39,7 @@ def test_a_faint_culture_below_the_threshold_is_not_called_quiescent_silently():
         rng=3,
     )  # fmt: skip
     with pytest.warns(BeatlabWarning, match="contraction-like pattern"):
-        a = analyze(as_recording(sim))
+        a = analyze_here(as_recording(sim))
     assert a.summary["beat_count"] == 0
     assert a.summary["quality"]["checks"] == "possible missed beats"
     assert a.headline().endswith("(check: possible missed beats)")
@@ -50,7 +49,7 @@ def test_a_quiescent_culture_is_not_flagged():
     sim = simulate_recording(
         duration_s=6, fps=20, shape_px=(64, 64), beat_times_s=[], noise_nm=1.5, rng=3
     )
-    a = analyze(as_recording(sim))  # the suite turns any warning into an error
+    a = analyze_here(as_recording(sim))  # the suite turns any warning into an error
     assert a.summary["beat_count"] == 0 and a.summary["quality"]["checks"] == ""
 
 
@@ -61,5 +60,5 @@ def test_a_drifting_quiescent_culture_is_not_taken_for_missed_beats():
         duration_s=8, fps=30, shape_px=(96, 96), rate_bpm=0, noise_nm=1.5, drift_nm=20,
         stage_drift_um=(0.6, -0.4), rng=2,
     )  # fmt: skip
-    a = analyze(as_recording(sim))  # the suite turns any warning into an error
+    a = analyze_here(as_recording(sim))  # the suite turns any warning into an error
     assert a.summary["beat_count"] == 0 and a.summary["quality"]["checks"] == ""

@@ -4,7 +4,7 @@ import numpy as np
 from scipy import ndimage
 
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording
+from tests.pipeline.helpers import analyze_here, as_recording
 
 
 def _drifting_rest(sim, amplitude_nm=25.0):
@@ -17,15 +17,14 @@ def _drifting_rest(sim, amplitude_nm=25.0):
 
 
 def test_refreshed_template_keeps_the_rest_level_flat():
-    from beatlab.pipeline import analyze
 
     sim = simulate_recording(
         duration_s=12, fps=20, shape_px=(80, 80), rate_bpm=40, noise_nm=1.0, rng=3
     )
     frames = _drifting_rest(sim)
     rest = np.atleast_2d(sim.activation)[0] < 1e-3
-    fixed = analyze(as_recording(sim, frames=frames))
-    refreshed = analyze(as_recording(sim, frames=frames), {"template": {"refresh_s": 3.0}})
+    fixed = analyze_here(as_recording(sim, frames=frames))
+    refreshed = analyze_here(as_recording(sim, frames=frames), {"template": {"refresh_s": 3.0}})
     amp = sim.truth["summary"]["displacement_um"]
 
     def worst_rest_level(result):

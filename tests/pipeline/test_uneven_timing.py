@@ -5,9 +5,8 @@ import pytest
 
 from beatlab import BeatlabWarning, open_recording
 from beatlab.io import write_ome_tiff
-from beatlab.pipeline import analyze
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import match_beats
+from tests.pipeline.helpers import analyze_here, match_beats
 
 
 def test_dropped_frames_keep_beat_timing(tmp_path):
@@ -25,7 +24,7 @@ def test_dropped_frames_keep_beat_timing(tmp_path):
     )
     with pytest.warns(BeatlabWarning, match="uneven"):
         rec = open_recording(path)
-    res = analyze(rec)
+    res = analyze_here(rec)
     assert res.summary["quality"]["uneven_timing"]
     assert res.summary["beat_count"] == sim.truth["summary"]["beat_count"]
     np.testing.assert_allclose(res.trace["time_s"], sim.times_s[keep])

@@ -10,7 +10,6 @@ import pandas as pd
 import pytest
 from matplotlib.image import AxesImage
 
-import beatlab
 from beatlab.errors import BeatlabWarning, ConfigError, InputError
 from beatlab.plots import (
     FIGURES,
@@ -42,14 +41,14 @@ from beatlab.plots.style import (
 )
 from beatlab.plots.trace import LANDMARK_LEVEL
 from beatlab.synth import simulate_recording
-from tests.pipeline.helpers import as_recording
+from tests.pipeline.helpers import analyze_here, as_recording
 
 
 def _analyze(**kwargs):
     with warnings.catch_warnings():
         # e.g. "2 regions beat on their own": kept in summary["warnings"], not tested here
         warnings.simplefilter("ignore", BeatlabWarning)
-        return beatlab.analyze(as_recording(simulate_recording(**kwargs)))
+        return analyze_here(as_recording(simulate_recording(**kwargs)))
 
 
 @pytest.fixture(scope="module")
