@@ -9,11 +9,28 @@ every ``every_s`` seconds.
 
 from __future__ import annotations
 
+import contextlib
+import logging
 import math
 import sys
 import time
+from collections.abc import Iterator
 
-__all__ = ["LineProgress", "progress_bar"]
+__all__ = ["LineProgress", "progress_bar", "timed"]
+
+
+@contextlib.contextmanager
+def timed(what: str, *, logger: str = "beatlab") -> Iterator[None]:
+    """Log the wall time of a step at debug level (``beatlab ... --debug`` shows it).
+
+    ``with timed("stage frames"): ...`` logs ``stage frames: 12.31 s`` when the block ends,
+    also when it raises.
+    """
+    start = time.perf_counter()
+    try:
+        yield
+    finally:
+        logging.getLogger(logger).debug("%s: %.2f s", what, time.perf_counter() - start)
 
 
 class LineProgress:

@@ -16,6 +16,7 @@ import sys
 import warnings
 from pathlib import Path
 
+from beatlab._progress import timed
 from beatlab._version import __version__
 from beatlab.errors import (
     AnalysisError,
@@ -437,7 +438,7 @@ def _cmd_analyze(args) -> int:
         regions=args.regions,
         progress=True,  # a bar on a terminal, plain lines in a log
     )
-    with atomic_folder(out) as tmp:  # the folder has all of its files or none of them
+    with timed("stage save"), atomic_folder(out) as tmp:  # all of its files or none of them
         result.save(tmp, figures=not args.no_figures, workers=min(4, os.cpu_count() or 1))
     print(f"{args.path}: {result.headline()} -> {out}")
     return EXIT_OK
@@ -656,7 +657,10 @@ def _setup_logging(*, debug: bool) -> None:
     handler.setFormatter(logging.Formatter("beatlab: %(levelname)s: %(message)s"))
     if not debug:
         handler.addFilter(lambda record: record.name.split(".")[0] == "beatlab")
-    logging.basicConfig(level=logging.DEBUG if debug else logging.WARNING, handlers=[handler])
+    # with --debug: our debug lines (stage times, e.g.) and the other libraries' info and
+    # above, not their debug chatter (matplotlib scores every font it knows at debug level)
+    logging.basicConfig(level=logging.INFO if debug else logging.WARNING, handlers=[handler])
+    logging.getLogger("beatlab").setLevel(logging.DEBUG if debug else logging.NOTSET)
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):

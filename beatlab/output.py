@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
+from beatlab._progress import timed
 from beatlab.errors import AnalysisError
 from beatlab.io.writers import atomic_path, write_json
 from beatlab.schema import TABLES
@@ -83,11 +84,12 @@ def save_analysis(
     paths["maps"] = out / "maps.npz"
     if figures:
         from beatlab.plots import save_recording_figures
-
-        paths.update(
-            save_recording_figures(analysis, out, formats=figure_formats, workers=workers)
-        )
         from beatlab.report import build_recording_report
 
-        paths["report"] = build_recording_report(out)
+        with timed("figures"):
+            paths.update(
+                save_recording_figures(analysis, out, formats=figure_formats, workers=workers)
+            )
+        with timed("report"):
+            paths["report"] = build_recording_report(out)
     return paths

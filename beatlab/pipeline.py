@@ -24,6 +24,7 @@ from collections.abc import Iterator
 import numpy as np
 import pandas as pd
 
+from beatlab._progress import timed
 from beatlab.errors import BeatlabWarning
 from beatlab.io.recording import Recording
 from beatlab.maps import build_maps
@@ -213,41 +214,46 @@ def analyze(
     """
     settings = load_settings(config)
     with _recorded_warnings() as caught:
-        rec, source = open_source(
-            recording, settings, kind=kind, fps=fps, pixel_size_um=pixel_size_um,
-            wavelength_nm=wavelength_nm, reference=reference,
-        )  # fmt: skip
+        with timed("stage open"):
+            rec, source = open_source(
+                recording, settings, kind=kind, fps=fps, pixel_size_um=pixel_size_um,
+                wavelength_nm=wavelength_nm, reference=reference,
+            )  # fmt: skip
         times = np.asarray(rec.times_s, dtype=float)
         start_s, end_s = float(times[0]), float(times[-1] + 1.0 / rec.fps)
-        ref = prepare_reference(
-            source, times_s=times, settings=settings, regions=regions, workers=workers,
-            progress=progress,
-        )  # fmt: skip
-        frames = measure_frames(
-            source, ref, times_s=times, settings=settings, workers=workers, progress=progress
-        )
-        whole = analyze_trace(
-            frames.displacement_um, frames.opd_change_nm, times, velocity=settings.velocity,
-            beats=settings.beats, rhythm=settings.rhythm, start_s=start_s, end_s=end_s,
-            pattern_frames=frames.pattern_frames,
-        )  # fmt: skip
-        _warn_if_untrustworthy(whole, source, frames.pattern_frames)
-        maps = build_maps(
-            frames.tile_traces_um, times, grid_shape=frames.tile_grid, tile_um=frames.tile_um,
-            onsets_s=whole.beats["onset_s"].to_numpy(float),
-            peaks_s=whole.beats["peak_s"].to_numpy(float), rest_frames=ref.rest.rest,
-            tile_coverage=frames.tile_coverage, min_snr=settings.maps.min_snr,
-        )  # fmt: skip
-        found = analyze_regions(
-            frames, ref, times_s=times, pixel_size_um=float(source.pixel_size_um),
-            settings=settings, start_s=start_s, end_s=end_s,
-        )  # fmt: skip
-        if _warn_if_mixed(found.table):
-            maps = _no_propagation_across_regions(maps)
-        summary = summarize(
-            whole, frames, ref, maps=maps, n_regions=len(found.table), recording=rec,
-            source=source, settings=settings, warnings=_messages(caught),
-        )  # fmt: skip
+        with timed("stage reference"):
+            ref = prepare_reference(
+                source, times_s=times, settings=settings, regions=regions, workers=workers,
+                progress=progress,
+            )  # fmt: skip
+        with timed("stage frames"):
+            frames = measure_frames(
+                source, ref, times_s=times, settings=settings, workers=workers,
+                progress=progress,
+            )  # fmt: skip
+        with timed("stage beats, maps, regions"):
+            whole = analyze_trace(
+                frames.displacement_um, frames.opd_change_nm, times, velocity=settings.velocity,
+                beats=settings.beats, rhythm=settings.rhythm, start_s=start_s, end_s=end_s,
+                pattern_frames=frames.pattern_frames,
+            )  # fmt: skip
+            _warn_if_untrustworthy(whole, source, frames.pattern_frames)
+            maps = build_maps(
+                frames.tile_traces_um, times, grid_shape=frames.tile_grid, tile_um=frames.tile_um,
+                onsets_s=whole.beats["onset_s"].to_numpy(float),
+                peaks_s=whole.beats["peak_s"].to_numpy(float), rest_frames=ref.rest.rest,
+                tile_coverage=frames.tile_coverage, min_snr=settings.maps.min_snr,
+            )  # fmt: skip
+            found = analyze_regions(
+                frames, ref, times_s=times, pixel_size_um=float(source.pixel_size_um),
+                settings=settings, start_s=start_s, end_s=end_s,
+            )  # fmt: skip
+            if _warn_if_mixed(found.table):
+                maps = _no_propagation_across_regions(maps)
+            summary = summarize(
+                whole, frames, ref, maps=maps, n_regions=len(found.table), recording=rec,
+                source=source, settings=settings, warnings=_messages(caught),
+            )  # fmt: skip
     drift_um = (frames.drift_px - frames.drift_px[0]) * float(source.pixel_size_um)
     trace = pd.DataFrame(
         {

@@ -300,7 +300,7 @@ def split_regions(
     of the nearest block that belongs to one.
     """
     lab = _check_labels(labels)
-    act = np.asarray(activity, dtype=np.float64)
+    act = np.asarray(activity)  # float64 only for the blocks that are compared (memory)
     if act.ndim != 3:
         raise InputError(f"activity must be (T, by, bx), got shape {act.shape}")
     _, by, bx = act.shape
@@ -345,7 +345,7 @@ def split_regions(
 
 def _independent_parts(act, blocks, b, min_area_px, split_r, merge_r, min_blocks, active):
     """Groups (lists of indices into ``blocks``) that beat independently, or []."""
-    traces = act[:, blocks[:, 0], blocks[:, 1]].T
+    traces = act[:, blocks[:, 0], blocks[:, 1]].T.astype(np.float64)
     r = _correlation_matrix(traces)
     index = {tuple(p): i for i, p in enumerate(blocks)}
     uf = _UnionFind(len(blocks))

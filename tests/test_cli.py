@@ -233,6 +233,30 @@ def still_movie(tmp_path_factory):
     return movie
 
 
+def test_debug_log_times_each_stage(still_movie, caplog):
+    import logging
+
+    from beatlab.pipeline import analyze
+
+    with caplog.at_level(logging.DEBUG, logger="beatlab"):
+        analyze(still_movie, workers=1)
+    timed = [r.getMessage() for r in caplog.records if r.getMessage().startswith("stage ")]
+    stages = [m.split(":")[0] for m in timed]
+    assert stages == [
+        "stage open", "stage reference", "stage frames", "stage beats, maps, regions"
+    ]  # fmt: skip
+    assert all(float(m.split(": ")[1].removesuffix(" s")) >= 0 for m in timed)
+
+
+def test_debug_shows_stage_times_but_not_library_debug_chatter(still_movie, tmp_path):
+    out = _run("analyze", str(still_movie), "--out", str(tmp_path / "res"), "--debug")
+    assert out.returncode == 0, out.stderr
+    for stage in ("reference", "frames", "save"):
+        assert f"beatlab: DEBUG: stage {stage}: " in out.stderr
+    assert "beatlab: DEBUG: figures: " in out.stderr
+    assert "findfont" not in out.stderr  # matplotlib's font scoring, at debug level
+
+
 def test_analysis_folder_is_written_whole_and_replaced_cleanly(still_movie, tmp_path, capsys):
     out = tmp_path / "res"
     assert main(["analyze", str(still_movie), "--out", str(out), "--no-figures"]) == 0

@@ -50,6 +50,10 @@ __all__ = [
 ]
 
 
+#: PNG deflate level 3 rather than 6: half the encoding time for files ~25 % larger.
+_SAVE_OPTIONS = {"png": {"pil_kwargs": {"compress_level": 3}}}
+
+
 def save_figure(
     draw: Callable,
     path: str | os.PathLike,
@@ -88,10 +92,14 @@ def save_figure(
     fig = plt.figure(figsize=size, layout="constrained")
     try:
         draw(fig if whole_figure else fig.add_subplot())
-        for fmt in formats:
+        for k, fmt in enumerate(formats):
             target = path.with_suffix(f".{fmt}")
             with atomic_path(target) as tmp:
-                fig.savefig(tmp, format=fmt)
+                fig.savefig(tmp, format=fmt, **_SAVE_OPTIONS.get(fmt, {}))
+            if k == 0:
+                # the layout is in inches: the next formats keep the positions the first
+                # one found instead of solving the constrained layout again
+                fig.set_layout_engine("none")
     finally:
         plt.close(fig)
     return path

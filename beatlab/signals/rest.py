@@ -365,6 +365,40 @@ def _aligned_and_deviation(span: tuple[int, int]) -> tuple[np.ndarray, np.ndarra
     return part, np.sqrt(np.mean(inner**2, axis=(1, 2)))
 
 
+def _inner_subset(stack: np.ndarray, most: int) -> np.ndarray:
+    """``stack[:, 2:-2, 2:-2]`` flattened to (T, P), every k-th pixel so that P <= ``most``.
+
+    The same columns as flattening the inner frames and taking every k-th, without the copy
+    of the whole inner stack.
+    """
+    n, ny, nx = stack.shape
+    width = nx - 4
+    inner = (ny - 4) * width
+    cols = np.arange(0, inner, int(np.ceil(inner / most)) if inner > most else 1)
+    return stack.reshape(n, -1)[:, (2 + cols // width) * nx + 2 + cols % width]
+
+
+#: Frames per block of the chunked reductions over the low-resolution stack.
+_REDUCE_FRAMES = 256
+
+
+def _successive_rms(stack: np.ndarray) -> np.ndarray:
+    """RMS over the inner pixels of each difference of successive frames (T - 1,), by blocks."""
+    n = stack.shape[0]
+    out = np.empty(max(n - 1, 0))
+    for start in range(0, n - 1, _REDUCE_FRAMES):
+        stop = min(start + _REDUCE_FRAMES, n - 1)
+        diff = (stack[start + 1 : stop + 1] - stack[start:stop])[:, 2:-2, 2:-2]
+        out[start:stop] = np.sqrt(np.mean(diff**2, axis=(1, 2)))
+    return out
+
+
+def _activity_in_place(aligned: np.ndarray, ref: np.ndarray) -> np.ndarray:
+    """``|aligned - ref|`` (float32) written over ``aligned``, which is not needed after."""
+    np.subtract(aligned, ref.astype(aligned.dtype), out=aligned)
+    return np.abs(aligned, out=aligned)
+
+
 def estimate_rest_template(
     source,
     *,
@@ -374,7 +408,7 @@ def estimate_rest_template(
     lowres_px: int = 64,
     refresh_s: float = 0.0,
     times_s: np.ndarray | None = None,
-    max_lowres_mb: float = 32.0,
+    max_lowres_mb: float = 16.0,
     workers: int = 1,
     progress: bool = False,
 ) -> RestTemplate:
@@ -399,8 +433,10 @@ def estimate_rest_template(
     times_s : ndarray (T,), optional
         Frame times in seconds (for ``refresh_s``).
     max_lowres_mb : float
-        Upper bound of the block-averaged stack kept by the cheap pass; long recordings are
-        block-averaged more coarsely to stay below it.
+        Upper bound (MiB) of the block-averaged stack kept by the cheap pass; long recordings
+        are block-averaged more coarsely to stay below it, so that the memory of an analysis
+        does not grow with the length. 16 MiB keeps 64 x 64 px for 1,000 frames and gives
+        32 x 32 px for 4,000 frames of a 256 px field.
     workers : int
         Forked worker processes (Linux) for the cheap pass: reading (where the source allows
         forked reads), phase correlation and levelling of spans of frames; 1 runs here. The
@@ -448,6 +484,9 @@ def estimate_rest_template(
     deviation = np.zeros(n)
     rest = np.ones(n, dtype=bool)
     spans = _spans(n, max(1, int(workers)) * 4)
+    # one buffer for the aligned frames of every iteration (the previous ones are not needed
+    # once the next reference is made): the pass holds two stacks, not three
+    aligned = np.empty_like(low)
     for iteration in range(3):
         leveller = PlaneLeveller(ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS)
         _JOB.update(low=low, ref=ref, window=window, leveller=leveller)
@@ -467,7 +506,6 @@ def estimate_rest_template(
             shifts[:] = 0.0
         _JOB.update(shifts=shifts, drifting=drifting)
         # each span written in place as it arrives: memory stays that of one stack
-        aligned = np.empty_like(low)
         parts = fork_imap(_aligned_and_deviation, spans, workers=workers)
         for (start, stop), (part, dev) in zip(spans, parts, strict=True):
             aligned[start:stop] = part
@@ -477,13 +515,13 @@ def estimate_rest_template(
             # the temporal median is a partly contracted state when beats fill most of the
             # time; start from the relaxed end of the main activity axis instead
             inner_px = aligned[0, 2:-2, 2:-2].size
-            score = relaxed_score(aligned[:, 2:-2, 2:-2].reshape(n, -1))
+            score = relaxed_score(_inner_subset(aligned, _SCORE_PIXELS))
             rest = score <= np.quantile(score, rest_quantile)
         else:
             rest = deviation <= np.quantile(deviation, rest_quantile)
         ref = aligned[rest].mean(axis=0)
     # noise floor of the deviation: consecutive resting frames differ by noise only
-    diffs = np.sqrt(np.mean((aligned[1:] - aligned[:-1])[:, 2:-2, 2:-2] ** 2, axis=(1, 2)))
+    diffs = _successive_rms(aligned)
     floor = float(np.median(diffs) / np.sqrt(2)) if n > 1 else 0.0
     rest_level = float(np.median(deviation[rest]))
     # a true rest: the culture comes back to (within noise of) its most relaxed state and
@@ -537,7 +575,7 @@ def estimate_rest_template(
         template_frames=idx,
         method=method,
         segments=tuple(segments),
-        activity=np.abs(aligned - ref).astype(np.float32),
+        activity=_activity_in_place(aligned, ref),
         info={
             "deviation_floor_nm": floor,
             "rest_deviation_nm": rest_level,

@@ -257,6 +257,10 @@ def _most_contracted(dev: np.ndarray, level: float) -> tuple[np.ndarray, np.ndar
     return order[keep], weights[keep]
 
 
+#: Frames per block when the block activity is reduced to each label's deviation.
+_DEVIATION_FRAMES = 256
+
+
 def label_deviation(rest: RestTemplate, labels: np.ndarray) -> np.ndarray | None:
     """RMS deviation from rest of each label's pixels per frame, nm (T, L); None: unknown.
 
@@ -275,7 +279,11 @@ def label_deviation(rest: RestTemplate, labels: np.ndarray) -> np.ndarray | None
     np.add.at(share, (block.ravel(), crop.ravel()), 1.0)
     share = share[:, 1:]
     area = share.sum(axis=0)
-    power = rest.activity.reshape(n, -1).astype(np.float64) ** 2 @ share
+    flat = rest.activity.reshape(n, -1)
+    power = np.empty((n, n_labels))
+    for start in range(0, n, _DEVIATION_FRAMES):  # in blocks: no float64 copy of the stack
+        block = flat[start : start + _DEVIATION_FRAMES].astype(np.float64)
+        power[start : start + _DEVIATION_FRAMES] = block**2 @ share
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.sqrt(np.where(area > 0, power / area, np.nan))
 
@@ -627,13 +635,14 @@ def measure_frames(
             stacklevel=2,
         )
     n_labels = int(reference.labels.max())
+    tile_disp *= px_um  # float32 in place (as ``* px_um`` would compute it, without the copy)
     return FrameSignals(
         displacement_um=mask_disp[:, 0] * px_um,
         opd_change_nm=mask_opd[:, 0],
         drift_px=shifts,
         clipped_fraction=clipped,
         frame_noise_nm=rest_noise_nm(rest, reference.mask),
-        tile_traces_um=(tile_disp * px_um).astype(np.float32),
+        tile_traces_um=tile_disp,
         tile_grid=tile_grid_shape(reference.mask.shape, tile_px=tile_px),
         tile_um=tile_px * px_um,
         tile_coverage=tile_means(reference.mask.astype(np.float32), tiles, n_tiles),
