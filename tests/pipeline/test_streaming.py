@@ -43,3 +43,23 @@ def test_frames_are_read_in_chunks_never_the_whole_recording():
     # and the passes together read each frame a small number of times (rest pass, template,
     # drift, pattern and projection rounds)
     assert sum(source.reads) < 5 * n
+
+
+def test_the_rest_pass_stack_does_not_grow_with_the_length():
+    # the per-frame memory the analysis keeps (block activity) is capped, so that a recording
+    # 4x as long needs no more: its frames are block-averaged more coarsely instead
+    from beatlab.frames import OPDSource
+    from beatlab.signals.rest import estimate_rest_template
+    from tests.pipeline.helpers import as_recording
+
+    cap_mb = 1.0
+    kept = {}
+    for seconds in (4, 16):
+        sim = simulate_recording(duration_s=seconds, fps=20, shape_px=(96, 96), rng=4)
+        rest = estimate_rest_template(
+            OPDSource(as_recording(sim)), lowres_px=48, max_lowres_mb=cap_mb
+        )
+        assert rest.activity.shape[0] == sim.frames.shape[0]
+        kept[seconds] = (rest.activity.nbytes, rest.info["block_factor"])
+    assert all(nbytes <= cap_mb * 2**20 for nbytes, _ in kept.values())
+    assert kept[4][1] == 2 and kept[16][1] > 2  # 80 frames at 48 px fit, 320 do not
