@@ -13,6 +13,7 @@ thickening as outward motion, under-reading the contraction by 15-25 % at 4 % st
 
 from __future__ import annotations
 
+import functools
 from typing import NamedTuple
 
 import cv2
@@ -42,11 +43,20 @@ class ReferenceBasis(NamedTuple):
 
 
 def gaussian_window(image: np.ndarray, sigma_px: float) -> np.ndarray:
-    """Gaussian-weighted local sum (normalised kernel), mirror borders, float32 in and out."""
+    """Gaussian-weighted local sum (normalised kernel), mirror borders, float32 in and out.
+
+    ``cv2.GaussianBlur`` with a ``2 ceil(3 sigma) + 1`` kernel, computed as the separable
+    filter of the same float32 kernel: the same numbers (checked against ``GaussianBlur`` in
+    tests/signals/test_flow.py) without its per-call kernel set-up.
+    """
+    kernel = _gaussian_kernel(float(sigma_px))
+    return cv2.sepFilter2D(image, -1, kernel, kernel, borderType=cv2.BORDER_REFLECT)
+
+
+@functools.lru_cache(maxsize=8)
+def _gaussian_kernel(sigma_px: float) -> np.ndarray:
     size = int(2 * np.ceil(3.0 * sigma_px) + 1)
-    return cv2.GaussianBlur(
-        image, (size, size), sigmaX=sigma_px, sigmaY=sigma_px, borderType=cv2.BORDER_REFLECT
-    )
+    return cv2.getGaussianKernel(size, sigma_px).astype(np.float32)
 
 
 def prepare_reference(

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 
 __all__ = ["PlaneLeveller"]
@@ -31,25 +33,52 @@ def _normal_matrices(weights: np.ndarray, pairs: np.ndarray, k: int) -> np.ndarr
     """
     sums = weights @ pairs
     normal = np.empty((weights.shape[0], k, k))
-    iu = np.triu_indices(k)
-    normal[:, iu[0], iu[1]] = sums
-    normal[:, iu[1], iu[0]] = sums
+    rows, cols = _upper(k)
+    normal[:, rows, cols] = sums
+    normal[:, cols, rows] = sums
     return normal
 
 
-def _tukey_irls(a: np.ndarray, d: np.ndarray, pairs: np.ndarray | None = None) -> np.ndarray:
+@functools.cache
+def _upper(k: int) -> tuple[np.ndarray, np.ndarray]:
+    """``np.triu_indices(k)``, made once per size."""
+    return np.triu_indices(k)
+
+
+def _row_medians(x: np.ndarray) -> np.ndarray:
+    """``np.median(x, axis=1)`` of a finite 2-D array, without its generic overhead.
+
+    The same selection (``np.partition`` at the middle index, or the two middle ones) and the
+    same mean of the two middle values, so the same numbers.
+    """
+    n = x.shape[1]
+    half = n // 2
+    if n % 2:
+        return np.partition(x, half, axis=1)[:, half]
+    part = np.partition(x, (half - 1, half), axis=1)
+    return np.mean(part[:, half - 1 : half + 1], axis=1)
+
+
+def _tukey_irls(
+    a: np.ndarray,
+    d: np.ndarray,
+    pairs: np.ndarray | None = None,
+    gram: np.ndarray | None = None,
+) -> np.ndarray:
     """Robust fit of each row of ``d`` (T, P) on the design ``a`` (P, k): coefficients (T, k).
 
     Ordinary least squares, then three Tukey-biweight reweightings (tuning 4.685 robust SDs).
     The scale is the MAD of the start's residuals (it ignores the moving cells already;
     re-estimating it at every step changes little and costs two medians each time).
-    ``pairs``: :func:`_column_products` of ``a``, when the caller keeps it.
+    ``pairs`` (:func:`_column_products` of ``a``) and ``gram`` (``a.T @ a``): when the caller
+    keeps them.
     """
     k = a.shape[1]
     pairs = _column_products(a) if pairs is None else pairs
-    coef = _solve_each(np.broadcast_to(a.T @ a, (d.shape[0], k, k)), d @ a)
+    gram = a.T @ a if gram is None else gram
+    coef = _solve_each(np.broadcast_to(gram, (d.shape[0], k, k)), d @ a)
     r = d - coef @ a.T
-    scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1, keepdims=True)), axis=1)
+    scale = 1.4826 * _row_medians(np.abs(r - _row_medians(r)[:, None]))
     robust = scale > 0
     if not robust.any():
         return coef
@@ -114,6 +143,7 @@ class PlaneLeveller:
             cols += [self._x.ravel()[self._idx], self._y.ravel()[self._idx]]
         self._design = np.stack(cols, axis=1).astype(np.float64)
         self._pairs = _column_products(self._design)
+        self._gram = self._design.T @ self._design
         self.tilt = bool(tilt)
         self.template = template
         self._template_at_idx = template.ravel()[self._idx]
@@ -124,7 +154,7 @@ class PlaneLeveller:
         diff = (frame - self._template_at_idx).astype(np.float64)
         good = np.isfinite(diff)
         if good.all():  # the usual case: the design and its products as prepared
-            return _tukey_irls(self._design, diff[None], self._pairs)[0]
+            return _tukey_irls(self._design, diff[None], self._pairs, self._gram)[0]
         a = self._design[good]
         if good.sum() < a.shape[1]:
             return np.zeros(a.shape[1])
@@ -141,7 +171,7 @@ class PlaneLeveller:
         diff = stack.reshape(n, -1)[:, self._idx] - self._template_at_idx
         if not np.isfinite(diff).all() or diff.shape[1] < self._design.shape[1]:
             return np.stack([self.fit(frame) for frame in stack]) if n else np.zeros((0, 0))
-        return _tukey_irls(self._design, diff.astype(np.float64), self._pairs)
+        return _tukey_irls(self._design, diff.astype(np.float64), self._pairs, self._gram)
 
     def _plane(self, coef: np.ndarray) -> np.ndarray | np.float32:
         plane = np.float32(coef[0])

@@ -318,3 +318,19 @@ def test_measure_can_skip_the_mean_magnitude():
     assert np.isnan(lean.displacement_um)
     np.testing.assert_array_equal(lean.flow_px, full.flow_px)
     assert full.displacement_um == pytest.approx(0.5 * PIXEL_UM, rel=0.1)
+
+
+@pytest.mark.parametrize("shape", [(256, 256), (97, 131), (13, 17)])
+@pytest.mark.parametrize("sigma", [0.5, 2.5, 4.0, 6.0])
+def test_gaussian_window_is_opencv_gaussian_blur(shape, sigma):
+    # reference library: cv2.GaussianBlur with the 2 ceil(3 sigma) + 1 kernel, mirror borders
+    import cv2
+
+    from beatlab.signals._flow_refine import gaussian_window
+
+    image = (np.random.default_rng(1).normal(0, 30, shape) + 100).astype(np.float32)
+    size = int(2 * np.ceil(3 * sigma) + 1)
+    expected = cv2.GaussianBlur(
+        image, (size, size), sigmaX=sigma, sigmaY=sigma, borderType=cv2.BORDER_REFLECT
+    )
+    np.testing.assert_array_equal(gaussian_window(image, sigma), expected)

@@ -76,3 +76,13 @@ def test_a_stack_is_levelled_exactly_as_frame_by_frame():
     np.testing.assert_allclose(leveller.level_stack(stack), one_by_one, atol=1e-4)
     stack[5, 4, 4] = np.nan  # a NaN at a fitted pixel: frame by frame, same result
     np.testing.assert_allclose(leveller.level_stack(stack)[:5], one_by_one[:5], atol=1e-4)
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 8, 7396, 7397])
+def test_row_medians_are_numpy_medians(n):
+    # reference library: numpy.median along rows, bit for bit (ties included)
+    from beatlab.signals.level import _row_medians
+
+    x = np.random.default_rng(n).normal(0, 1, (4, n))
+    x[1] = np.round(x[1], 1)  # many ties
+    np.testing.assert_array_equal(_row_medians(x), np.median(x, axis=1))
