@@ -46,10 +46,12 @@ def block_mean(frame: np.ndarray, factor: int) -> np.ndarray:
         return np.asarray(frame, dtype=np.float32)
     ny, nx = (s // factor for s in frame.shape)
     f = np.asarray(frame[: ny * factor, : nx * factor], dtype=np.float32)
-    if not np.isnan(f.sum()):  # no NaN (a NaN makes the sum NaN; infinities stay infinite)
-        # area resampling by an integer factor is the exact block mean (and several times
-        # faster than a reshape-mean)
-        return cv2.resize(f, (nx, ny), interpolation=cv2.INTER_AREA)
+    # area resampling by an integer factor is the exact block mean (and several times faster
+    # than a reshape-mean); a NaN pixel makes its block NaN, so the small result tells whether
+    # the NaN-aware mean is needed (infinities stay infinite, as in the mean)
+    out = cv2.resize(f, (nx, ny), interpolation=cv2.INTER_AREA)
+    if not np.isnan(out.sum()):
+        return out
     blocks = f.reshape(ny, factor, nx, factor)
     with np.errstate(invalid="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN blocks stay NaN

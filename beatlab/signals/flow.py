@@ -194,7 +194,7 @@ def to_uint8(image_nm: np.ndarray, scale: tuple[float, float]) -> tuple[np.ndarr
     scale = check_scale(scale)
     grey = _scale_to_grey(image, scale)
     finite = np.isfinite(grey)
-    n_finite = int(finite.sum())
+    n_finite = int(np.count_nonzero(finite))
     clipped = int(np.count_nonzero((grey < -0.5) | (grey > 255.5)))
     out = np.clip(np.rint(np.where(finite, grey, _NAN_GREY)), 0, 255).astype(np.uint8)
     return out, (clipped / n_finite if n_finite else 0.0)

@@ -248,7 +248,7 @@ class FlowTracker:
         region = self._region
         flow[region] = refine_with_basis(
             self._basis,
-            _scale_to_grey(filled, self.scale)[region],
+            _scale_to_grey(filled[region], self.scale),  # elementwise: the region only
             flow[region],
             iterations=self.refine_iterations,
         )
