@@ -120,6 +120,7 @@ def one_length(tmp: Path, path: Path, *, fps: float, pixel_um: float, runs: int)
     for name, rows in results.items():
         summary[name] = {
             "frames_s": n_frames / float(np.median([r[0] for r in rows])),
+            "runs_s": [r[0] for r in rows],
             "peak_anon_mb": float(max(r[1] for r in rows)),
             "accuracy": rows[-1][2],
         }
@@ -169,6 +170,10 @@ def main() -> None:
                 f"{a['onset_s']:>9.1f} {a['time_to_peak_s']:>7.1f} {a['duration_90_s']:>7.1f} "
                 f"{a['displacement_pct']:>7.1f}"
             )
+    for row in rows:  # the spread behind each median: run k of one against run k of the other
+        pairs = zip(row["beatlab"]["runs_s"], row["plain"]["runs_s"], strict=True)
+        ratios = ", ".join(f"{plain / ours:.2f}x" for ours, plain in pairs)
+        print(f"{row['frames']:>6} frames, ratio of each run: {ratios}")
     if len(rows) > 1:
         mem = [row["beatlab"]["peak_anon_mb"] for row in rows]
         print(f"beatlab peak memory, longest / shortest: {max(mem) / min(mem):.3f}")
