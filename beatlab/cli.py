@@ -195,7 +195,7 @@ def build_parser() -> argparse.ArgumentParser:
         "use only.",
     )
     parser.add_argument("--version", action="version", version=f"beatlab {__version__}")
-    debug_help = "show tracebacks, library warnings and debug logs"
+    debug_help = "show tracebacks, library warnings and debug logs (with the time of each stage)"
     parser.add_argument("--debug", action="store_true", help=debug_help)
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
