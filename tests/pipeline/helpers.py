@@ -1,7 +1,5 @@
 """Shared helpers (imported, not a conftest) for end-to-end tests on simulator truth."""
 
-from contextlib import contextmanager
-
 import numpy as np
 import pandas as pd
 
@@ -35,21 +33,6 @@ def as_recording(sim, frames=None, kind=None):
     )
 
 
-@contextmanager
-def one_library_thread():
-    """OpenCV and BLAS on one thread each inside, as in a batch worker with ``threads=1``."""
-    import cv2
-    from threadpoolctl import threadpool_limits
-
-    before = cv2.getNumThreads()
-    cv2.setNumThreads(1)
-    try:
-        with threadpool_limits(limits=1):
-            yield
-    finally:
-        cv2.setNumThreads(before)
-
-
 def analyze_here(recording, config=None, **kwargs):
     """`beatlab.analyze` as a batch worker run with ``threads=1`` does it: the per-frame pass
     in this process (``workers=1``), OpenCV and BLAS on one thread each.
@@ -59,9 +42,10 @@ def analyze_here(recording, config=None, **kwargs):
     under pytest-xdist every core runs a test already (tests/pipeline/test_bias.py: 27 s of
     CPU time with the library threads, 22 s without, and no faster with a core to spare).
     """
+    from beatlab._fork import single_threaded_libraries
     from beatlab.pipeline import analyze
 
-    with one_library_thread():
+    with single_threaded_libraries():
         return analyze(recording, config, **{"workers": 1, **kwargs})
 
 
