@@ -19,7 +19,14 @@ import numba
 import numpy as np
 from scipy import ndimage as ndi
 
-__all__ = ["PAD_PX", "prepare_warp", "spline_coefficients", "warp_cubic"]
+__all__ = [
+    "PAD_PX",
+    "gauss_newton_update",
+    "prepare_warp",
+    "residual_products",
+    "spline_coefficients",
+    "warp_cubic",
+]
 
 #: Edge-extension (px) of the coefficient image: displaced positions beyond it are clamped
 #: (the extended image is constant there, so nothing changes).
@@ -32,6 +39,39 @@ def spline_coefficients(image: np.ndarray) -> np.ndarray:
     return ndi.spline_filter(padded, order=3, mode="nearest").astype(np.float32)
 
 
+@numba.njit(nogil=True, cache=True, inline="always")
+def _sample(coeffs, pad, y, x, lo, hi_y, hi_x):  # pragma: no cover - compiled
+    """The cubic B-spline of ``coeffs`` at (y, x) (float64), NaN at a non-finite position."""
+    if not (np.isfinite(y) and np.isfinite(x)):
+        return np.nan
+    y = min(max(y, lo), hi_y)
+    x = min(max(x, lo), hi_x)
+    fy = np.floor(y)
+    fx = np.floor(x)
+    ty = y - fy
+    tx = x - fx
+    by = int(fy) + pad - 1
+    bx = int(fx) + pad - 1
+    # cubic B-spline weights of the 4 coefficients at offsets -1, 0, 1, 2
+    uy = 1.0 - ty
+    ty2 = ty * ty
+    wy0 = uy * uy * uy / 6.0
+    wy3 = ty2 * ty / 6.0
+    wy1 = (3.0 * ty2 * ty - 6.0 * ty2 + 4.0) / 6.0
+    wy2 = 1.0 - wy0 - wy1 - wy3
+    ux = 1.0 - tx
+    tx2 = tx * tx
+    wx0 = ux * ux * ux / 6.0
+    wx3 = tx2 * tx / 6.0
+    wx1 = (3.0 * tx2 * tx - 6.0 * tx2 + 4.0) / 6.0
+    wx2 = 1.0 - wx0 - wx1 - wx3
+    acc = 0.0
+    for k, wy in enumerate((wy0, wy1, wy2, wy3)):
+        row = coeffs[by + k]
+        acc += wy * (wx0 * row[bx] + wx1 * row[bx + 1] + wx2 * row[bx + 2] + wx3 * row[bx + 3])
+    return acc
+
+
 @numba.njit(nogil=True, cache=True)
 def _warp(coeffs, pad, dy, dx, out):  # pragma: no cover - compiled; tested through warp_cubic
     ny, nx = out.shape
@@ -40,40 +80,45 @@ def _warp(coeffs, pad, dy, dx, out):  # pragma: no cover - compiled; tested thro
     hi_x = nx + pad - 3.0
     for r in range(ny):
         for c in range(nx):
-            y = r + dy[r, c]
-            x = c + dx[r, c]
-            if not (np.isfinite(y) and np.isfinite(x)):
-                out[r, c] = np.nan
-                continue
-            y = min(max(y, lo), hi_y)
-            x = min(max(x, lo), hi_x)
-            fy = np.floor(y)
-            fx = np.floor(x)
-            ty = y - fy
-            tx = x - fx
-            by = int(fy) + pad - 1
-            bx = int(fx) + pad - 1
-            # cubic B-spline weights of the 4 coefficients at offsets -1, 0, 1, 2
-            uy = 1.0 - ty
-            ty2 = ty * ty
-            wy0 = uy * uy * uy / 6.0
-            wy3 = ty2 * ty / 6.0
-            wy1 = (3.0 * ty2 * ty - 6.0 * ty2 + 4.0) / 6.0
-            wy2 = 1.0 - wy0 - wy1 - wy3
-            ux = 1.0 - tx
-            tx2 = tx * tx
-            wx0 = ux * ux * ux / 6.0
-            wx3 = tx2 * tx / 6.0
-            wx1 = (3.0 * tx2 * tx - 6.0 * tx2 + 4.0) / 6.0
-            wx2 = 1.0 - wx0 - wx1 - wx3
-            acc = 0.0
-            for k, wy in enumerate((wy0, wy1, wy2, wy3)):
-                row = coeffs[by + k]
-                acc += wy * (
-                    wx0 * row[bx] + wx1 * row[bx + 1] + wx2 * row[bx + 2] + wx3 * row[bx + 3]
-                )
-            out[r, c] = acc
+            out[r, c] = _sample(coeffs, pad, r + dy[r, c], c + dx[r, c], lo, hi_y, hi_x)
     return out
+
+
+@numba.njit(nogil=True, cache=True)
+def _residual_products(coeffs, pad, flow, reference, basis, products):  # pragma: no cover
+    """``products[j] = basis[j] * (warp(coeffs, flow) - reference)``, float32.
+
+    The same float32 operations as :func:`warp_cubic`, then ``error -= reference`` and
+    ``basis[j] * error`` in numpy, in one pass without the intermediate images.
+    """
+    ny, nx = reference.shape
+    lo = 1.0 - pad
+    hi_y = ny + pad - 3.0
+    hi_x = nx + pad - 3.0
+    for r in range(ny):
+        for c in range(nx):
+            warped = np.float32(
+                _sample(coeffs, pad, r + flow[r, c, 1], c + flow[r, c, 0], lo, hi_y, hi_x)
+            )
+            error = warped - reference[r, c]
+            for j in range(basis.shape[0]):
+                products[j, r, c] = basis[j, r, c] * error
+
+
+@numba.njit(nogil=True, cache=True)
+def _gauss_newton_update(rows, rhs, flow):  # pragma: no cover - compiled; tested through refine
+    """``flow[..., comp] -= sum_j rows[comp, j] * rhs[j]`` for comp 0, 1, float32.
+
+    Summed in the order of ``step = row[0] * rhs[0]; step += row[j] * rhs[j]`` in numpy.
+    """
+    k, ny, nx = rhs.shape
+    for r in range(ny):
+        for c in range(nx):
+            for comp in range(2):
+                step = rows[comp, 0, r, c] * rhs[0, r, c]
+                for j in range(1, k):
+                    step = step + rows[comp, j, r, c] * rhs[j, r, c]
+                flow[r, c, comp] = flow[r, c, comp] - step
 
 
 def warp_cubic(coeffs: np.ndarray, flow: np.ndarray) -> np.ndarray:
@@ -104,10 +149,66 @@ def warp_cubic(coeffs: np.ndarray, flow: np.ndarray) -> np.ndarray:
     )
 
 
+def residual_products(
+    coeffs: np.ndarray, flow: np.ndarray, reference: np.ndarray, basis: np.ndarray, out: np.ndarray
+) -> np.ndarray:
+    """``out[j] = basis[j] * (warp_cubic(coeffs, flow) - reference)`` in one compiled pass.
+
+    Parameters
+    ----------
+    coeffs : ndarray (Y + 2 PAD_PX, X + 2 PAD_PX) float32
+        From :func:`spline_coefficients`.
+    flow : ndarray (Y, X, 2) float32, C-contiguous
+        ``(dx, dy)`` px per pixel.
+    reference : ndarray (Y, X) float32
+    basis : ndarray (k, Y, X) float32
+    out : ndarray (k, Y, X) float32
+        Written in place and returned.
+
+    Returns
+    -------
+    ndarray (k, Y, X) float32
+        The same numbers as the numpy expression (float32 operations in the same order).
+    """
+    ny, nx = reference.shape
+    if flow.shape != (ny, nx, 2) or basis.shape[1:] != (ny, nx) or out.shape != basis.shape:
+        raise ValueError(
+            f"shapes do not match: flow {flow.shape}, reference {reference.shape}, "
+            f"basis {basis.shape}, out {out.shape}"
+        )
+    _residual_products(coeffs, PAD_PX, flow, reference, basis, out)
+    return out
+
+
+def gauss_newton_update(rows: np.ndarray, rhs: np.ndarray, flow: np.ndarray) -> np.ndarray:
+    """``flow[..., c] -= sum_j rows[c, j] * rhs[j]`` (c = 0, 1) in place, float32.
+
+    Parameters
+    ----------
+    rows : ndarray (2, k, Y, X) float32
+        Rows 0 and 1 of the inverse normal matrix.
+    rhs : ndarray (k, Y, X) float32
+        Windowed right-hand sides.
+    flow : ndarray (Y, X, 2) float32, C-contiguous
+        Updated in place and returned.
+    """
+    if rows.shape[1:] != rhs.shape or flow.shape != (*rhs.shape[1:], 2):
+        raise ValueError(
+            f"shapes do not match: rows {rows.shape}, rhs {rhs.shape}, flow {flow.shape}"
+        )
+    _gauss_newton_update(rows, rhs, flow)
+    return flow
+
+
 def prepare_warp() -> None:
     """Compile (or load from numba's cache) the warp now, in this process.
 
     Worker processes forked afterwards inherit the compiled code; otherwise every worker of
     every round would load it again on its first frame.
     """
-    warp_cubic(spline_coefficients(np.zeros((4, 4))), np.zeros((4, 4, 2), dtype=np.float32))
+    coeffs = spline_coefficients(np.zeros((4, 4)))
+    flow = np.zeros((4, 4, 2), dtype=np.float32)
+    warp_cubic(coeffs, flow)
+    images = np.zeros((2, 4, 4), dtype=np.float32)
+    residual_products(coeffs, flow, images[0], images, np.empty_like(images))
+    gauss_newton_update(np.zeros((2, 2, 4, 4), dtype=np.float32), images, flow)

@@ -19,7 +19,12 @@ from typing import NamedTuple
 import cv2
 import numpy as np
 
-from beatlab.signals._cubic_warp import prepare_warp, spline_coefficients, warp_cubic
+from beatlab.signals._cubic_warp import (
+    gauss_newton_update,
+    prepare_warp,
+    residual_products,
+    spline_coefficients,
+)
 
 __all__ = ["ReferenceBasis", "gaussian_window", "prepare_reference", "refine_with_basis"]
 
@@ -36,21 +41,26 @@ class ReferenceBasis(NamedTuple):
     """Everything about the reference image that does not change from frame to frame."""
 
     reference: np.ndarray  # (Y, X) float32
-    basis: tuple  # the k basis images (gradients, then brightness terms), (Y, X) float32
-    rows: tuple  # rows 0 and 1 of the inverse normal matrix: 2 tuples of k (Y, X) float32
+    basis: np.ndarray  # (k, Y, X) float32: the gradients (x, y), then the brightness terms
+    rows: np.ndarray  # (2, k, Y, X) float32: rows 0 and 1 of the inverse normal matrix
     window_px: float
     textured: bool  # False when the reference has no gradient anywhere (constant image)
 
 
-def gaussian_window(image: np.ndarray, sigma_px: float) -> np.ndarray:
+def gaussian_window(
+    image: np.ndarray, sigma_px: float, *, out: np.ndarray | None = None
+) -> np.ndarray:
     """Gaussian-weighted local sum (normalised kernel), mirror borders, float32 in and out.
 
     ``cv2.GaussianBlur`` with a ``2 ceil(3 sigma) + 1`` kernel, computed as the separable
     filter of the same float32 kernel: the same numbers (checked against ``GaussianBlur`` in
-    tests/signals/test_flow.py) without its per-call kernel set-up.
+    tests/signals/test_flow.py) without its per-call kernel set-up. ``out``: a C-contiguous
+    float32 array of the image's shape to write into.
     """
     kernel = _gaussian_kernel(float(sigma_px))
-    return cv2.sepFilter2D(image, -1, kernel, kernel, borderType=cv2.BORDER_REFLECT)
+    if out is None:
+        return cv2.sepFilter2D(image, -1, kernel, kernel, borderType=cv2.BORDER_REFLECT)
+    return cv2.sepFilter2D(image, -1, kernel, kernel, dst=out, borderType=cv2.BORDER_REFLECT)
 
 
 @functools.lru_cache(maxsize=8)
@@ -91,12 +101,9 @@ def prepare_reference(
         inverse = np.linalg.inv(normal)
     else:
         inverse = np.zeros_like(normal)
-    # contiguous planes: the per-frame solve is then a few fast elementwise products
-    rows = tuple(
-        tuple(np.ascontiguousarray(inverse[..., comp, j], dtype=np.float32) for j in range(k))
-        for comp in (0, 1)
-    )
-    return ReferenceBasis(ref, tuple(basis), rows, float(window_px), textured)
+    # contiguous planes: the per-frame solve is then one compiled elementwise pass
+    rows = np.ascontiguousarray(np.moveaxis(inverse[..., :2, :], (-2, -1), (0, 1)), np.float32)
+    return ReferenceBasis(ref, np.stack(basis), rows, float(window_px), textured)
 
 
 def refine_with_basis(
@@ -106,19 +113,17 @@ def refine_with_basis(
 
     Returns a new flow; the brightness terms are re-estimated at every step.
     """
-    out = np.array(flow, dtype=np.float32, copy=True)
+    out = np.array(flow, dtype=np.float32, order="C", copy=True)
     if iterations == 0 or not basis.textured:
         return out
     coeffs = spline_coefficients(moving)
+    products = np.empty_like(basis.basis)
+    rhs = np.empty_like(basis.basis)
     for _ in range(iterations):
-        error = warp_cubic(coeffs, out)
-        error -= basis.reference
-        rhs = [gaussian_window(b * error, basis.window_px) for b in basis.basis]
-        # only the two displacement components of the solution are needed
-        for comp in (0, 1):
-            row = basis.rows[comp]
-            step = row[0] * rhs[0]
-            for j in range(1, len(rhs)):
-                step += row[j] * rhs[j]
-            out[..., comp] -= step
+        # b * (moving warped by the current flow - reference) for each basis image b, then
+        # their Gaussian-windowed sums; only the two displacement components are solved for
+        residual_products(coeffs, out, basis.reference, basis.basis, products)
+        for j in range(products.shape[0]):
+            gaussian_window(products[j], basis.window_px, out=rhs[j])
+        gauss_newton_update(basis.rows, rhs, out)
     return out

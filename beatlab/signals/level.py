@@ -2,92 +2,22 @@
 
 from __future__ import annotations
 
-import functools
-
 import numpy as np
+
+from beatlab.signals._level_kernel import prepare_level, tukey_rows
 
 __all__ = ["PlaneLeveller"]
 
 
-def _solve_each(normal: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-    """Solve each ``normal[t] @ c = rhs[t]`` (T, k, k) and (T, k); minimum norm if singular."""
-    try:
-        return np.linalg.solve(normal, rhs[..., None])[..., 0]
-    except np.linalg.LinAlgError:  # a degenerate pixel set or weighting
-        pairs = zip(normal, rhs, strict=True)
-        return np.stack([np.linalg.lstsq(n, r, rcond=None)[0] for n, r in pairs])
-
-
-def _column_products(a: np.ndarray) -> np.ndarray:
-    """Products of the design's columns (P, k(k+1)/2), upper triangle in row-major order."""
-    iu = np.triu_indices(a.shape[1])
-    return a[:, iu[0]] * a[:, iu[1]]
-
-
-def _normal_matrices(weights: np.ndarray, pairs: np.ndarray, k: int) -> np.ndarray:
-    """``a.T @ diag(w) @ a`` for each row ``w`` of ``weights`` (T, P): (T, k, k).
-
-    One matrix product with the design's column products (``pairs``,
-    :func:`_column_products`) instead of a (T, k, P) weighted copy of the design: the fits
-    of a whole batch of frames then cost a few BLAS calls.
-    """
-    sums = weights @ pairs
-    normal = np.empty((weights.shape[0], k, k))
-    rows, cols = _upper(k)
-    normal[:, rows, cols] = sums
-    normal[:, cols, rows] = sums
-    return normal
-
-
-@functools.cache
-def _upper(k: int) -> tuple[np.ndarray, np.ndarray]:
-    """``np.triu_indices(k)``, made once per size."""
-    return np.triu_indices(k)
-
-
-def _row_medians(x: np.ndarray) -> np.ndarray:
-    """``np.median(x, axis=1)`` of a finite 2-D array, without its generic overhead.
-
-    The same selection (``np.partition`` at the middle index, or the two middle ones) and the
-    same mean of the two middle values, so the same numbers.
-    """
-    n = x.shape[1]
-    half = n // 2
-    if n % 2:
-        return np.partition(x, half, axis=1)[:, half]
-    part = np.partition(x, (half - 1, half), axis=1)
-    return np.mean(part[:, half - 1 : half + 1], axis=1)
-
-
-def _tukey_irls(
-    a: np.ndarray,
-    d: np.ndarray,
-    pairs: np.ndarray | None = None,
-    gram: np.ndarray | None = None,
-) -> np.ndarray:
+def _tukey_irls(a: np.ndarray, d: np.ndarray, gram: np.ndarray | None = None) -> np.ndarray:
     """Robust fit of each row of ``d`` (T, P) on the design ``a`` (P, k): coefficients (T, k).
 
     Ordinary least squares, then three Tukey-biweight reweightings (tuning 4.685 robust SDs).
     The scale is the MAD of the start's residuals (it ignores the moving cells already;
     re-estimating it at every step changes little and costs two medians each time).
-    ``pairs`` (:func:`_column_products` of ``a``) and ``gram`` (``a.T @ a``): when the caller
-    keeps them.
+    Compiled, one pass per frame (:func:`beatlab.signals._level_kernel.tukey_rows`).
     """
-    k = a.shape[1]
-    pairs = _column_products(a) if pairs is None else pairs
-    gram = a.T @ a if gram is None else gram
-    coef = _solve_each(np.broadcast_to(gram, (d.shape[0], k, k)), d @ a)
-    r = d - coef @ a.T
-    scale = 1.4826 * _row_medians(np.abs(r - _row_medians(r)[:, None]))
-    robust = scale > 0
-    if not robust.any():
-        return coef
-    d_robust, cut = d[robust], 4.685 * scale[robust, None]
-    for step in range(3):
-        r = d_robust - coef[robust] @ a.T if step else r[robust]
-        w = np.clip(1.0 - (r / cut) ** 2, 0.0, None) ** 2  # Tukey biweight, 0 beyond the cut
-        coef[robust] = _solve_each(_normal_matrices(w, pairs, k), (w * d_robust) @ a)
-    return coef
+    return tukey_rows(a, d, gram)
 
 
 class PlaneLeveller:
@@ -142,8 +72,8 @@ class PlaneLeveller:
         if tilt:
             cols += [self._x.ravel()[self._idx], self._y.ravel()[self._idx]]
         self._design = np.stack(cols, axis=1).astype(np.float64)
-        self._pairs = _column_products(self._design)
         self._gram = self._design.T @ self._design
+        prepare_level()  # compiled here, before any worker forks: they inherit it
         self.tilt = bool(tilt)
         self.template = template
         self._template_at_idx = template.ravel()[self._idx]
@@ -151,10 +81,10 @@ class PlaneLeveller:
     def fit(self, frame: np.ndarray) -> np.ndarray:
         """Return the plane coefficients (offset nm, x-tilt, y-tilt per field) for ``frame``."""
         frame = np.asarray(frame, dtype=np.float32).ravel()[self._idx]
-        diff = (frame - self._template_at_idx).astype(np.float64)
+        diff = frame - self._template_at_idx
         good = np.isfinite(diff)
         if good.all():  # the usual case: the design and its products as prepared
-            return _tukey_irls(self._design, diff[None], self._pairs, self._gram)[0]
+            return _tukey_irls(self._design, diff[None], self._gram)[0]
         a = self._design[good]
         if good.sum() < a.shape[1]:
             return np.zeros(a.shape[1])
@@ -171,7 +101,7 @@ class PlaneLeveller:
         diff = stack.reshape(n, -1)[:, self._idx] - self._template_at_idx
         if not np.isfinite(diff).all() or diff.shape[1] < self._design.shape[1]:
             return np.stack([self.fit(frame) for frame in stack]) if n else np.zeros((0, 0))
-        return _tukey_irls(self._design, diff.astype(np.float64), self._pairs, self._gram)
+        return _tukey_irls(self._design, diff, self._gram)
 
     def _plane(self, coef: np.ndarray) -> np.ndarray | np.float32:
         plane = np.float32(coef[0])

@@ -78,10 +78,57 @@ def test_a_stack_is_levelled_exactly_as_frame_by_frame():
     np.testing.assert_allclose(leveller.level_stack(stack)[:5], one_by_one[:5], atol=1e-4)
 
 
+def _tukey_numpy(a, d):
+    """The numpy formulation the compiled fit replaced (beatlab 0.1, signals/level.py): OLS,
+    scale = 1.4826 MAD of its residuals, three Tukey-biweight (c = 4.685) reweightings."""
+    coef = np.linalg.solve(a.T @ a, (d @ a).T).T
+    r = d - coef @ a.T
+    scale = 1.4826 * np.median(np.abs(r - np.median(r, axis=1)[:, None]), axis=1)
+    for t in np.flatnonzero(scale > 0):
+        c = coef[t]
+        for _ in range(3):
+            w = np.clip(1.0 - ((d[t] - a @ c) / (4.685 * scale[t])) ** 2, 0.0, None) ** 2
+            c = np.linalg.solve(a.T @ (w[:, None] * a), a.T @ (w * d[t]))
+        coef[t] = c
+    return coef
+
+
+@pytest.mark.parametrize("k", [1, 3])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_compiled_tukey_fit_is_the_numpy_formulation(k, dtype):
+    from beatlab.signals._level_kernel import tukey_rows
+
+    rng = np.random.default_rng(k)
+    p = 999  # odd: one middle value; the MAD median of 998 is also covered below
+    a = np.column_stack([np.ones(p), rng.uniform(-0.5, 0.5, (p, 2))])[:, :k]
+    d = rng.normal(0, 1, (6, p)) + (a @ rng.normal(0, 5, (k, 6))).T
+    d[1, :50] += 60.0  # moving cells: outliers the biweight rejects
+    d[2] = 7.0  # no spread: the plain least-squares fit
+    d = d.astype(dtype)
+    for rows in (d, d[:, 1:]):
+        a_used = a if rows.shape[1] == p else a[1:]
+        got = tukey_rows(a_used, rows)
+        want = _tukey_numpy(a_used, rows.astype(np.float64))
+        np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-9)
+    # the biweight rejects the outliers: frame 1 fits as without them, within the noise
+    clean = d[1:2].astype(np.float64)
+    clean[0, :50] -= 60.0
+    np.testing.assert_allclose(tukey_rows(a, d[1:2]), tukey_rows(a, clean), atol=0.15)
+
+
+def test_compiled_tukey_fit_of_a_singular_design_is_minimum_norm():
+    # reference library: numpy.linalg.lstsq gives the minimum-norm least-squares solution
+    from beatlab.signals._level_kernel import tukey_rows
+
+    a = np.column_stack([np.ones(50), np.ones(50)])  # two identical columns
+    d = np.full((1, 50), 4.0)
+    np.testing.assert_allclose(tukey_rows(a, d), [[2.0, 2.0]], atol=1e-9)
+
+
 @pytest.mark.parametrize("n", [1, 2, 3, 8, 7396, 7397])
 def test_row_medians_are_numpy_medians(n):
     # reference library: numpy.median along rows, bit for bit (ties included)
-    from beatlab.signals.level import _row_medians
+    from beatlab.signals._level_kernel import _row_medians
 
     x = np.random.default_rng(n).normal(0, 1, (4, n))
     x[1] = np.round(x[1], 1)  # many ties
