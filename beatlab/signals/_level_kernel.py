@@ -14,7 +14,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["TUKEY_C", "prepare_level", "tukey_rows"]
+__all__ = ["TUKEY_C", "prepare_level", "subtract_plane", "tukey_rows"]
 
 #: Tukey biweight tuning constant, in robust SDs (95 % efficiency at the normal).
 TUKEY_C = 4.685
@@ -175,8 +175,38 @@ def tukey_rows(a: np.ndarray, d: np.ndarray, gram: np.ndarray | None = None) -> 
     return coef
 
 
+@numba.njit(cache=True, nogil=True)
+def _subtract_plane(frame, c0, c1, c2, x, y, out):  # pragma: no cover - compiled
+    ny, nx = frame.shape
+    for r in range(ny):
+        for c in range(nx):
+            out[r, c] = frame[r, c] - ((c0 + c1 * x[r, c]) + c2 * y[r, c])
+    return out
+
+
+def subtract_plane(
+    frame: np.ndarray, coef: np.ndarray, x: np.ndarray, y: np.ndarray
+) -> np.ndarray:
+    """``frame - (c0 + c1 x + c2 y)`` in float32, one pass.
+
+    The same float32 operations, in the same order, as ``frame - (np.float32(c0) +
+    np.float32(c1) * x + np.float32(c2) * y)`` in numpy (tests compare bit for bit).
+
+    Parameters
+    ----------
+    frame, x, y : ndarray (Y, X) float32
+    coef : array-like (3,)
+        Offset, x-tilt and y-tilt.
+    """
+    frame = np.ascontiguousarray(frame, dtype=np.float32)
+    c0, c1, c2 = (np.float32(c) for c in coef)
+    return _subtract_plane(frame, c0, c1, c2, x, y, np.empty_like(frame))
+
+
 def prepare_level() -> None:
     """Compile (or load from numba's cache) the fit now, before any worker forks."""
     a = np.ones((4, 1))
     for dtype in (np.float32, np.float64):
         tukey_rows(a, np.arange(8, dtype=dtype).reshape(2, 4))
+    grid = np.zeros((2, 2), dtype=np.float32)
+    subtract_plane(grid, np.zeros(3), grid, grid)

@@ -34,6 +34,7 @@ from beatlab.signals._flow_checks import (
     check_window,
 )
 from beatlab.signals._flow_refine import prepare_reference, refine_with_basis
+from beatlab.signals._frame_kernels import NAN_GREY, grey_and_uint8
 
 __all__ = [
     "DIS_PRESETS",
@@ -62,7 +63,7 @@ FARNEBACK_PRESETS: dict[str, tuple[float, int, int, int, int, float]] = {
     "medium": (0.5, 4, 21, 5, 7, 1.5),
 }
 
-_NAN_GREY = 128  # mid-grey written where the input is NaN (see to_uint8)
+_NAN_GREY = NAN_GREY  # mid-grey written where the input is NaN (see to_uint8)
 _MIN_BACKGROUND_PX = 64
 _MAX_MEDIAN_PX = 65536
 
@@ -192,11 +193,8 @@ def to_uint8(image_nm: np.ndarray, scale: tuple[float, float]) -> tuple[np.ndarr
     """
     image = check_image("image_nm", image_nm)
     scale = check_scale(scale)
-    grey = _scale_to_grey(image, scale)
-    finite = np.isfinite(grey)
-    n_finite = int(np.count_nonzero(finite))
-    clipped = int(np.count_nonzero((grey < -0.5) | (grey > 255.5)))
-    out = np.clip(np.rint(np.where(finite, grey, _NAN_GREY)), 0, 255).astype(np.uint8)
+    # one compiled pass: the numbers of _scale_to_grey, np.rint and np.clip (bit for bit)
+    _, out, n_finite, clipped = grey_and_uint8(image, scale)
     return out, (clipped / n_finite if n_finite else 0.0)
 
 

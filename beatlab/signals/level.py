@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from beatlab.signals._level_kernel import prepare_level, tukey_rows
+from beatlab.signals._level_kernel import prepare_level, subtract_plane, tukey_rows
 
 __all__ = ["PlaneLeveller"]
 
@@ -111,7 +111,10 @@ class PlaneLeveller:
 
     def level(self, frame: np.ndarray) -> np.ndarray:
         """Return ``frame`` minus its fitted plane, as float32."""
-        return np.asarray(frame, dtype=np.float32) - self._plane(self.fit(frame))
+        coef = self.fit(frame)
+        if self.tilt and np.ndim(frame) == 2:  # one compiled pass, the numbers of _plane
+            return subtract_plane(frame, coef, self._x, self._y)
+        return np.asarray(frame, dtype=np.float32) - self._plane(coef)
 
     def level_stack(self, frames: np.ndarray) -> np.ndarray:
         """:meth:`level` of every frame of a stack (T, Y, X), float32."""

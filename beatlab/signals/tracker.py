@@ -22,6 +22,7 @@ from beatlab.signals._flow_checks import (
     check_window,
 )
 from beatlab.signals._flow_refine import ReferenceBasis, prepare_reference, refine_with_basis
+from beatlab.signals._frame_kernels import grey_and_uint8, prepare_frame_kernels
 from beatlab.signals.flow import (
     _PRESETS,
     FLOW_METHODS,
@@ -191,6 +192,7 @@ class FlowTracker:
         self.refine_iterations = int(refine_iterations)
         self.window_px = float(window_px)
         self._region = _refine_region(self.mask, self.background, self.window_px)
+        prepare_frame_kernels()  # compiled here, before any worker forks: they inherit it
         self._basis: ReferenceBasis = prepare_reference(
             _scale_to_grey(filled, self.scale)[self._region], window_px=self.window_px
         )
@@ -240,17 +242,19 @@ class FlowTracker:
                 f"frame_nm must have the template shape {self._template_nm.shape}, got "
                 f"{frame.shape}; pass frames of the same recording"
             )
-        complete = bool(np.isfinite(frame.sum()))  # the usual case: no NaN pixel to fill
-        finite = None if complete else np.isfinite(frame)
-        filled = frame if complete else np.where(finite, frame, self._template_nm)
-        moving_u8, clipped = to_uint8(filled, self.scale)
+        # grey levels and the 8-bit image in one pass (what to_uint8 and _scale_to_grey give)
+        grey, moving_u8, n_finite, n_clipped = grey_and_uint8(frame, self.scale)
+        complete = n_finite == frame.size  # the usual case: no NaN pixel to fill
+        finite = None
+        if not complete:
+            finite = np.isfinite(frame)
+            filled = np.where(finite, frame, self._template_nm)
+            grey, moving_u8, n_finite, n_clipped = grey_and_uint8(filled, self.scale)
+        clipped = n_clipped / n_finite if n_finite else 0.0
         flow = FLOW_METHODS[self.method](self.template_u8, moving_u8, preset=self.preset)
         region = self._region
         flow[region] = refine_with_basis(
-            self._basis,
-            _scale_to_grey(filled[region], self.scale),  # elementwise: the region only
-            flow[region],
-            iterations=self.refine_iterations,
+            self._basis, grey[region], flow[region], iterations=self.refine_iterations
         )
         if not complete:
             flow[~finite] = np.nan

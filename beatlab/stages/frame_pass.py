@@ -29,6 +29,7 @@ from scipy import sparse
 from beatlab._progress import progress_bar
 from beatlab.errors import BeatlabWarning, InputError
 from beatlab.settings import Settings
+from beatlab.signals._frame_kernels import gather_frame, project_cells
 from beatlab.signals.level import PlaneLeveller
 from beatlab.signals.maps import tile_grid_shape, tile_labels, tile_means
 from beatlab.signals.projection import (
@@ -392,6 +393,7 @@ class _FrameWork:
         self.reducer = reducer
         self.cells = cells
         self.mask = mask
+        self._mask_pixels = np.flatnonzero(mask)
         self.frame_ref = frame_ref
         self.template_k = template_k
         self.pattern_frames = pattern_frames
@@ -408,6 +410,11 @@ class _FrameWork:
 
     def _gathered(self, i, frame):
         flow, diff, shift, clip = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
+        if flow.dtype == diff.dtype == np.float32:  # always, but the fallback keeps any dtype
+            # one compiled pass: cells.gather of both (non-finite as 0) and whether any mask
+            # pixel of the field is finite, the same numbers
+            f, d, finite = gather_frame(flow, diff, self.cells.pixels, self._mask_pixels)
+            return f, d, shift, clip, finite
         finite = bool(np.isfinite(flow[self.mask]).any())
         return (
             self.cells.gather(flow).astype(np.float32),
@@ -433,9 +440,16 @@ class _FrameWork:
         own = None
         if i in self.pattern_frames or self.template_k[i] > 1:
             own = tuple(cells.cell_sums(v) for v in pat.own_terms(f, d))
+        if f.dtype == d.dtype == np.float32 and pat.field_perp.dtype == np.float64:
+            # one compiled pass, the numbers of the cell_sums below (bit for bit)
+            dots = project_cells(f, d, pat.field_perp, pat.opd_perp, cells.cell, cells.n_cells)
+        else:
+            dots = (
+                cells.cell_sums((f * pat.field_perp).sum(axis=1)),
+                cells.cell_sums(d * pat.opd_perp),
+            )
         return (
-            cells.cell_sums((f * pat.field_perp).sum(axis=1)),
-            cells.cell_sums(d * pat.opd_perp),
+            *dots,
             own,
             shift,
             clip,
