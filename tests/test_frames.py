@@ -113,3 +113,30 @@ def test_select_indices_and_frames_at_read_what_select_chunks_reads():
     for (_, expected), (same, _) in zip(chunks, lazy, strict=True):
         np.testing.assert_array_equal(src.frames_at(same), expected)
     assert src.readable_in_forks  # an array in memory
+
+
+def test_binned_frames_with_infinities_are_those_of_the_frames_with_nan_there():
+    # The binned read checks for infinities after binning (cheaper); the result must be that
+    # of replacing them by NaN first (a block mean then skips them), with one warning.
+    from beatlab.errors import BeatlabWarning
+    from beatlab.frames import block_mean
+
+    rng = np.random.default_rng(4)
+    frames = rng.normal(300, 20, (10, 32, 32)).astype(np.float32)
+    frames[1, 3, 3] = np.inf  # one infinity in a block
+    frames[2, 4:6, 4:6] = [[np.inf, -np.inf], [np.nan, 1.0]]  # +inf and -inf in one block
+    frames[3, 0:2, 0:2] = np.nan  # a whole NaN block, no infinity
+    frames[4, 9, 9] = np.nan
+    want = np.where(np.isinf(frames), np.nan, frames)
+    want = np.stack([block_mean(f, 2) for f in want])
+    src = OPDSource(_rec(frames, "opd"), chunk_frames=4, bin=2)
+    with pytest.warns(BeatlabWarning, match="infinite values"):
+        got = np.concatenate([b for _, b in src.chunks()])
+    np.testing.assert_array_equal(got, want)
+    assert np.isfinite(got[1]).all() and np.isfinite(got[2, 2, 2])
+    keep = np.zeros(10, dtype=bool)
+    keep[[2, 3, 7]] = True
+    picked = list(src.select_chunks(keep))
+    np.testing.assert_array_equal(np.concatenate([i for i, _ in picked]), [2, 3, 7])
+    np.testing.assert_array_equal(np.concatenate([p for _, p in picked]), want[keep])
+    np.testing.assert_array_equal(src.frames_at(np.array([1, 2, 4])), want[[1, 2, 4]])

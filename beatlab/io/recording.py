@@ -132,11 +132,17 @@ class Recording:
         return self._finite(np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32))
 
     def chunks(
-        self, size: int = 64, *, start: int = 0, stop: int | None = None
+        self,
+        size: int = 64,
+        *,
+        start: int = 0,
+        stop: int | None = None,
+        replace_infinite: bool = True,
     ) -> Iterator[tuple[int, np.ndarray]]:
         """Yield ``(first_index, frames)`` with float32 arrays of at most ``size`` frames.
 
-        Infinite values come as NaN (missing pixels).
+        Infinite values come as NaN (missing pixels); ``replace_infinite=False`` leaves them
+        for a caller that checks a smaller result first (:meth:`replace_infinite` then).
         """
         if size < 1:
             raise ValueError(f"chunk size must be >= 1, got {size}")
@@ -149,7 +155,7 @@ class Recording:
                     f"{self.source}: could read only {block.shape[0]} of frames "
                     f"{i}-{j - 1}; the file may be truncated"
                 )
-            yield i, self._finite(block)
+            yield i, self._finite(block) if replace_infinite else block
 
     def _read(self, i: int, j: int) -> np.ndarray:
         """Frames ``i:j`` as float32; a damaged file gives an InputError, not a library's."""
@@ -163,6 +169,10 @@ class Recording:
                 f"{self.source}: frames {i}-{j - 1} cannot be read ({detail[:200]}); the file "
                 "is damaged or truncated: export it again"
             ) from None
+
+    def replace_infinite(self, frames: np.ndarray) -> np.ndarray:
+        """``frames`` with +-inf set to NaN (a copy if any); warns once per recording."""
+        return self._finite(frames)
 
     def _finite(self, frames: np.ndarray) -> np.ndarray:
         """``frames`` with +-inf set to NaN; warns once per recording."""

@@ -82,8 +82,8 @@ class PlaneLeveller:
         """Return the plane coefficients (offset nm, x-tilt, y-tilt per field) for ``frame``."""
         frame = np.asarray(frame, dtype=np.float32).ravel()[self._idx]
         diff = frame - self._template_at_idx
-        good = np.isfinite(diff)
-        if good.all():  # the usual case: the design and its products as prepared
+        # the usual case (a finite sum: every value finite): the design as prepared
+        if np.isfinite(diff.sum()) or (good := np.isfinite(diff)).all():
             return _tukey_irls(self._design, diff[None], self._gram)[0]
         a = self._design[good]
         if good.sum() < a.shape[1]:

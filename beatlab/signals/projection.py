@@ -386,10 +386,10 @@ def project_groups(
         RMS of ``B`` over the group (nm). NaN for groups without pattern (no pixels, no
         signal in the pattern frames).
     """
-    s = sparse.csr_matrix(groups, dtype=np.float64)
+    s_t = sparse.csr_matrix(groups, dtype=np.float64).T  # transposed once, not per call
 
     def group(cells):
-        return np.asarray(s.T @ np.asarray(cells, dtype=np.float64).T).T
+        return np.asarray(s_t @ np.asarray(cells, dtype=np.float64).T).T
 
     n = group(sums.count)
     norm_a, norm_b = group(sums.norm_a), group(sums.norm_b)
