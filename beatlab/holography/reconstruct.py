@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import copy
 import logging
 import warnings
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -412,19 +415,63 @@ class OffAxisReconstructor:
         Every frame is unwrapped in time: its wrapped phase difference to the first frame is
         added to the spatially unwrapped first frame, so no pixel jumps by 2 pi between frames
         as long as its phase changes by less than pi from the first frame.
+
+        With ``workers`` > 1 (see :meth:`fit`), that many frames are reconstructed at once in
+        threads, each with single-threaded transforms (scipy.fft and numpy release the GIL):
+        the elementwise work around the transforms then runs in parallel too, which threads
+        inside one frame's transforms leave serial. The frames are the same either way.
         """
         frames = holograms
         if progress:
             from tqdm.auto import tqdm
 
             frames = tqdm(holograms, desc="holograms", unit="frame")
-        wrapped = (self.wrapped_phase(h) for h in frames)
-        for phase in unwrap_in_time(
-            wrapped,
-            reference_wrapped=self._reference_wrapped,
-            reference_unwrapped=self._reference_unwrapped,
-        ):
-            yield phase_to_opd(phase, self.wavelength_nm)
+        threads = int(self._filter.workers or 1)
+        if threads <= 1:
+            wrapped = (self.wrapped_phase(h) for h in frames)
+            for phase in unwrap_in_time(
+                wrapped,
+                reference_wrapped=self._reference_wrapped,
+                reference_unwrapped=self._reference_unwrapped,
+            ):
+                yield phase_to_opd(phase, self.wavelength_nm)
+            return
+        single = self._single_threaded()
+        yield from _ordered_in_threads(single._opd_frame, frames, threads)
+
+    def _single_threaded(self) -> OffAxisReconstructor:
+        """A copy whose transforms run on one thread (the arrays are shared, read only)."""
+        single = copy.copy(self)
+        single._filter = copy.copy(self._filter)
+        single._filter.workers = 1
+        if self._propagator is not None:
+            single._propagator = copy.copy(self._propagator)
+            single._propagator.workers = 1
+        return single
+
+    def _opd_frame(self, hologram) -> np.ndarray:
+        """OPD (nm) of one hologram, as :meth:`opd_frames` yields it."""
+        (opd,) = (
+            phase_to_opd(phase, self.wavelength_nm)
+            for phase in unwrap_in_time(
+                [self.wrapped_phase(hologram)],
+                reference_wrapped=self._reference_wrapped,
+                reference_unwrapped=self._reference_unwrapped,
+            )
+        )
+        return opd
+
+
+def _ordered_in_threads(function, items, threads: int):
+    """``function(item)`` for each item in order, ``threads`` at once, a few items ahead."""
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        pending: deque = deque()
+        for item in items:
+            pending.append(pool.submit(function, item))
+            if len(pending) > 2 * threads:
+                yield pending.popleft().result()
+        while pending:
+            yield pending.popleft().result()
 
 
 def _unwrapped(field):

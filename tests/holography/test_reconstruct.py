@@ -304,3 +304,26 @@ def test_configuration_zeros_mean_automatic():
         OffAxisReconstructor.fit(
             holo, wavelength_nm=LAMBDA_NM, pixel_size_um=PIXEL_UM, refocus_um=5.0, autofocus=True
         )
+
+
+@pytest.mark.parametrize("refocus_um", [None, 2.0])
+def test_frames_reconstructed_in_threads_are_those_of_one_thread(refocus_um):
+    # workers > 1 reconstructs frames in parallel threads, each with one-threaded transforms:
+    # the same frames, in the same order, bit for bit (reference: the one-thread stream)
+    rng = np.random.default_rng(21)
+    opd_at = _cell_model(rng, count=4)
+    optics = {"wavelength_nm": LAMBDA_NM, "read_noise_counts": 2.0}
+    ref = render_reference(SHAPE, rng=rng, **optics)
+    holograms = [
+        render_hologram(_on_camera(opd_at) * (1 + 0.03 * k), rng=rng, **optics) for k in range(11)
+    ]
+    options = {"wavelength_nm": LAMBDA_NM, "pixel_size_um": PIXEL_UM, "reference": ref}
+    fits = [
+        OffAxisReconstructor.fit(holograms[0], refocus_um=refocus_um, workers=w, **options)
+        for w in (1, 3)
+    ]
+    one, three = (list(rec.opd_frames(iter(holograms))) for rec in fits)
+    assert len(three) == len(one) == len(holograms)
+    for a, b in zip(one, three, strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert fits[1]._filter.workers == 3  # the copy used by the threads changed nothing
