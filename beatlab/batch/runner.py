@@ -272,7 +272,14 @@ def _run_pool(function, pending: list, *, processes: int, threads: int):
             if pending:
                 with pinned_environment(threads):
                     next_item = pending.pop()
-                    running[pool.submit(function, next_item)] = next_item
+                    try:
+                        running[pool.submit(function, next_item)] = next_item
+                    except BrokenProcessPool:  # a worker died before its future said so
+                        pending.append(next_item)  # never ran: next in line again
+                        lost = list(running.values())
+                        running.clear()
+                        finished = True
+                        return lost
         finished = True
         return []
     finally:

@@ -421,3 +421,34 @@ def test_an_interrupted_batch_keeps_its_finished_recordings_and_resumes_identica
     result, again = _counted_batch(layout, out)
     assert result.counts["cached"] == 2 and len(again) == 3
     _same_files(reference[1], out)
+
+
+def test_a_pool_that_breaks_while_an_item_is_submitted_loses_no_item(monkeypatch):
+    # a worker can die between two results: the next submit then raises BrokenProcessPool
+    # itself (seen under load); the item not yet started stays pending, the one in flight
+    # is rerun alone, and every item gets its result once
+    from concurrent.futures import Future
+    from concurrent.futures.process import BrokenProcessPool
+
+    from beatlab.batch import runner
+
+    submits = []
+
+    class BreaksOnThirdSubmit:
+        def submit(self, function, item):
+            submits.append(item)
+            if len(submits) == 3:
+                raise BrokenProcessPool("a child process terminated abruptly")
+            future = Future()
+            future.set_result(function(item))
+            return future
+
+        def shutdown(self, wait, cancel_futures):
+            pass
+
+    monkeypatch.setattr(runner, "_new_pool", lambda processes, threads: BreaksOnThirdSubmit())
+    found = list(
+        runner._in_processes(lambda x: x * x, [1, 2, 3, 4], processes=2, threads=1,
+                             on_death=lambda exc: "died")
+    )  # fmt: skip
+    assert sorted(found) == [(1, 1), (2, 4), (3, 9), (4, 16)]
