@@ -451,15 +451,14 @@ class OffAxisReconstructor:
 
     def _opd_frame(self, hologram) -> np.ndarray:
         """OPD (nm) of one hologram, as :meth:`opd_frames` yields it."""
-        (opd,) = (
-            phase_to_opd(phase, self.wavelength_nm)
-            for phase in unwrap_in_time(
+        phase = next(
+            unwrap_in_time(
                 [self.wrapped_phase(hologram)],
                 reference_wrapped=self._reference_wrapped,
                 reference_unwrapped=self._reference_unwrapped,
             )
         )
-        return opd
+        return phase_to_opd(phase, self.wavelength_nm)
 
 
 def _ordered_in_threads(function, items, threads: int):

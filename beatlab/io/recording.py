@@ -129,7 +129,7 @@ class Recording:
             i += n
         if not 0 <= i < n:
             raise IndexError(f"frame {index} out of range for {n} frames")
-        return self._finite(np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32))
+        return self.replace_infinite(np.asarray(self.frames.read(i, i + 1)[0], dtype=np.float32))
 
     def chunks(
         self,
@@ -155,7 +155,7 @@ class Recording:
                     f"{self.source}: could read only {block.shape[0]} of frames "
                     f"{i}-{j - 1}; the file may be truncated"
                 )
-            yield i, self._finite(block) if replace_infinite else block
+            yield i, self.replace_infinite(block) if replace_infinite else block
 
     def _read(self, i: int, j: int) -> np.ndarray:
         """Frames ``i:j`` as float32; a damaged file gives an InputError, not a library's."""
@@ -172,10 +172,6 @@ class Recording:
 
     def replace_infinite(self, frames: np.ndarray) -> np.ndarray:
         """``frames`` with +-inf set to NaN (a copy if any); warns once per recording."""
-        return self._finite(frames)
-
-    def _finite(self, frames: np.ndarray) -> np.ndarray:
-        """``frames`` with +-inf set to NaN; warns once per recording."""
         if self.dtype.kind != "f" or np.isfinite(frames.sum()):  # a finite sum: no inf, no NaN
             return frames
         infinite = np.isinf(frames)

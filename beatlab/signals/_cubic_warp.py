@@ -40,6 +40,17 @@ def spline_coefficients(image: np.ndarray) -> np.ndarray:
 
 
 @numba.njit(nogil=True, cache=True, inline="always")
+def _weights(t):  # pragma: no cover - compiled; tested through warp_cubic
+    """Cubic B-spline weights of the 4 coefficients at offsets -1, 0, 1, 2 of a fraction t."""
+    u = 1.0 - t
+    t2 = t * t
+    w0 = u * u * u / 6.0
+    w3 = t2 * t / 6.0
+    w1 = (3.0 * t2 * t - 6.0 * t2 + 4.0) / 6.0
+    return w0, w1, 1.0 - w0 - w1 - w3, w3
+
+
+@numba.njit(nogil=True, cache=True, inline="always")
 def _sample(coeffs, pad, y, x, lo, hi_y, hi_x):  # pragma: no cover - compiled
     """The cubic B-spline of ``coeffs`` at (y, x) (float64), NaN at a non-finite position."""
     if not (np.isfinite(y) and np.isfinite(x)):
@@ -48,25 +59,11 @@ def _sample(coeffs, pad, y, x, lo, hi_y, hi_x):  # pragma: no cover - compiled
     x = min(max(x, lo), hi_x)
     fy = np.floor(y)
     fx = np.floor(x)
-    ty = y - fy
-    tx = x - fx
     by = int(fy) + pad - 1
     bx = int(fx) + pad - 1
-    # cubic B-spline weights of the 4 coefficients at offsets -1, 0, 1, 2
-    uy = 1.0 - ty
-    ty2 = ty * ty
-    wy0 = uy * uy * uy / 6.0
-    wy3 = ty2 * ty / 6.0
-    wy1 = (3.0 * ty2 * ty - 6.0 * ty2 + 4.0) / 6.0
-    wy2 = 1.0 - wy0 - wy1 - wy3
-    ux = 1.0 - tx
-    tx2 = tx * tx
-    wx0 = ux * ux * ux / 6.0
-    wx3 = tx2 * tx / 6.0
-    wx1 = (3.0 * tx2 * tx - 6.0 * tx2 + 4.0) / 6.0
-    wx2 = 1.0 - wx0 - wx1 - wx3
+    wx0, wx1, wx2, wx3 = _weights(x - fx)
     acc = 0.0
-    for k, wy in enumerate((wy0, wy1, wy2, wy3)):
+    for k, wy in enumerate(_weights(y - fy)):
         row = coeffs[by + k]
         acc += wy * (wx0 * row[bx] + wx1 * row[bx + 1] + wx2 * row[bx + 2] + wx3 * row[bx + 3])
     return acc

@@ -1,12 +1,13 @@
 """Per-frame elementwise work in single compiled passes (numba): the 8-bit mapping, gathers.
 
-:func:`grey_and_uint8`, for :func:`beatlab.signals.flow.to_uint8` and the tracker: the float grey
-image (for the refinement), the rounded 8-bit image (for the coarse flow), and the counts of
-finite and clipped pixels, computed with the same float32 operations as the numpy expression
-``(image - lo) * (255 / (hi - lo))``, ``np.rint``, ``np.clip(0, 255)`` (tests/signals/test_flow.py
-compares them bit for bit), without a dozen passes over the frame. :func:`gather_frame`, for
-the per-frame pass: a frame's field and OPD difference at the used pixels, non-finite as 0;
-:func:`project_cells`: their projections summed per cell, as ``np.bincount`` sums them.
+:func:`grey_and_uint8`, for :func:`beatlab.signals.flow.to_uint8` and the tracker: the float
+grey image (for the refinement), the rounded 8-bit image (for the coarse flow), and the counts
+of finite and clipped pixels, computed with the same float32 operations as the numpy
+expression ``(image - lo) * (255 / (hi - lo))``, ``np.rint``, ``np.clip(0, 255)``
+(tests/signals/test_frame_kernels.py compares them bit for bit), without a dozen passes over
+the frame. :func:`gather_frame`, for the per-frame pass: a frame's field and OPD difference at
+the used pixels, non-finite as 0; :func:`project_cells`: their projections summed per cell,
+as ``np.bincount`` sums them.
 """
 
 from __future__ import annotations

@@ -34,7 +34,7 @@ from beatlab.signals._flow_checks import (
     check_window,
 )
 from beatlab.signals._flow_refine import prepare_reference, refine_with_basis
-from beatlab.signals._frame_kernels import NAN_GREY, grey_and_uint8
+from beatlab.signals._frame_kernels import grey_and_uint8
 
 __all__ = [
     "DIS_PRESETS",
@@ -63,7 +63,6 @@ FARNEBACK_PRESETS: dict[str, tuple[float, int, int, int, int, float]] = {
     "medium": (0.5, 4, 21, 5, 7, 1.5),
 }
 
-_NAN_GREY = NAN_GREY  # mid-grey written where the input is NaN (see to_uint8)
 _MIN_BACKGROUND_PX = 64
 _MAX_MEDIAN_PX = 65536
 

@@ -9,17 +9,6 @@ from beatlab.signals._level_kernel import prepare_level, subtract_plane, tukey_r
 __all__ = ["PlaneLeveller"]
 
 
-def _tukey_irls(a: np.ndarray, d: np.ndarray, gram: np.ndarray | None = None) -> np.ndarray:
-    """Robust fit of each row of ``d`` (T, P) on the design ``a`` (P, k): coefficients (T, k).
-
-    Ordinary least squares, then three Tukey-biweight reweightings (tuning 4.685 robust SDs).
-    The scale is the MAD of the start's residuals (it ignores the moving cells already;
-    re-estimating it at every step changes little and costs two medians each time).
-    Compiled, one pass per frame (:func:`beatlab.signals._level_kernel.tukey_rows`).
-    """
-    return tukey_rows(a, d, gram)
-
-
 class PlaneLeveller:
     """Fit and remove ``a + b x + c y`` from ``frame - template``, robustly.
 
@@ -84,11 +73,11 @@ class PlaneLeveller:
         diff = frame - self._template_at_idx
         # the usual case (a finite sum: every value finite): the design as prepared
         if np.isfinite(diff.sum()) or (good := np.isfinite(diff)).all():
-            return _tukey_irls(self._design, diff[None], self._gram)[0]
+            return tukey_rows(self._design, diff[None], self._gram)[0]
         a = self._design[good]
         if good.sum() < a.shape[1]:
             return np.zeros(a.shape[1])
-        return _tukey_irls(a, diff[good][None])[0]
+        return tukey_rows(a, diff[good][None])[0]
 
     def fit_stack(self, frames: np.ndarray) -> np.ndarray:
         """:meth:`fit` of every frame of a stack (T, Y, X) at once, coefficients (T, k).
@@ -101,7 +90,7 @@ class PlaneLeveller:
         diff = stack.reshape(n, -1)[:, self._idx] - self._template_at_idx
         if not np.isfinite(diff).all() or diff.shape[1] < self._design.shape[1]:
             return np.stack([self.fit(frame) for frame in stack]) if n else np.zeros((0, 0))
-        return _tukey_irls(self._design, diff, self._gram)
+        return tukey_rows(self._design, diff, self._gram)
 
     def _plane(self, coef: np.ndarray) -> np.ndarray | np.float32:
         plane = np.float32(coef[0])

@@ -392,8 +392,7 @@ class _FrameWork:
     def __init__(self, reducer, cells, mask, *, frame_ref, template_k, pattern_frames):
         self.reducer = reducer
         self.cells = cells
-        self.mask = mask
-        self._mask_pixels = np.flatnonzero(mask)
+        self._mask_pixels = np.flatnonzero(mask)  # where a frame must have a finite field
         self.frame_ref = frame_ref
         self.template_k = template_k
         self.pattern_frames = pattern_frames
@@ -410,19 +409,10 @@ class _FrameWork:
 
     def _gathered(self, i, frame):
         flow, diff, shift, clip = self.reducer.fields(frame, self._given(i), self.frame_ref[i])
-        if flow.dtype == diff.dtype == np.float32:  # always, but the fallback keeps any dtype
-            # one compiled pass: cells.gather of both (non-finite as 0) and whether any mask
-            # pixel of the field is finite, the same numbers
-            f, d, finite = gather_frame(flow, diff, self.cells.pixels, self._mask_pixels)
-            return f, d, shift, clip, finite
-        finite = bool(np.isfinite(flow[self.mask]).any())
-        return (
-            self.cells.gather(flow).astype(np.float32),
-            self.cells.gather(diff),
-            shift,
-            clip,
-            finite,
-        )
+        # one compiled pass: both at the used pixels (non-finite as 0, float32) and whether
+        # any mask pixel of the field is finite
+        f, d, finite = gather_frame(flow, diff, self.cells.pixels, self._mask_pixels)
+        return f, d, shift, clip, finite
 
     def pattern(self, i, frame):
         """The frame's field and OPD difference at the used pixels, its shift, clipping and
@@ -440,14 +430,8 @@ class _FrameWork:
         own = None
         if i in self.pattern_frames or self.template_k[i] > 1:
             own = tuple(cells.cell_sums(v) for v in pat.own_terms(f, d))
-        if f.dtype == d.dtype == np.float32 and pat.field_perp.dtype == np.float64:
-            # one compiled pass, the numbers of the cell_sums below (bit for bit)
-            dots = project_cells(f, d, pat.field_perp, pat.opd_perp, cells.cell, cells.n_cells)
-        else:
-            dots = (
-                cells.cell_sums((f * pat.field_perp).sum(axis=1)),
-                cells.cell_sums(d * pat.opd_perp),
-            )
+        # one compiled pass: the cell sums of F . A_perp and D B_perp (bit for bit bincounts)
+        dots = project_cells(f, d, pat.field_perp, pat.opd_perp, cells.cell, cells.n_cells)
         return (
             *dots,
             own,
