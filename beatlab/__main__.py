@@ -1,8 +1,6 @@
 """``python -m beatlab``."""
 
-import sys
-
-from beatlab.cli import main
+from beatlab.cli import run
 
 if __name__ == "__main__":
-    sys.exit(main())
+    run()

@@ -7,6 +7,7 @@ Thin: parses, calls the API, maps errors to exit codes (0 success, 1 analysis fa
 from __future__ import annotations
 
 import argparse
+import atexit
 import logging
 import math
 import os
@@ -27,7 +28,7 @@ from beatlab.errors import (
     OutputError,
 )
 
-__all__ = ["build_parser", "main"]
+__all__ = ["build_parser", "main", "run"]
 
 EXIT_OK, EXIT_FAILURE, EXIT_USAGE = 0, 1, 2
 
@@ -689,6 +690,25 @@ def main(argv: list[str] | None = None) -> int:
         if not args.debug:
             warnings.showwarning = _show_warning
         return _run(args)
+
+
+def run() -> None:
+    """The ``beatlab`` console command: :func:`main`, then leave without the interpreter's
+    teardown.
+
+    Once the command is done every output file is written and closed; what is left is the
+    interpreter freeing every module of scipy, pandas, numba and matplotlib one at a time,
+    0.3-0.4 s of nothing on each run (measured on a 1,000-frame analysis). The exit handlers
+    still run and the streams are flushed; then the process ends with the command's code.
+    """
+    code = main()
+    atexit._run_exitfuncs()  # what a normal exit runs (logging's flush, temporary folders)
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except (OSError, ValueError):  # a closed pipe (``beatlab ... | head``), a closed file
+            pass
+    os._exit(code)
 
 
 def _run(args) -> int:

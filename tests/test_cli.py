@@ -1,6 +1,7 @@
 """The command line as a user runs it: exit codes, one-line errors, output files."""
 
 import json
+import re
 import subprocess
 import sys
 
@@ -245,7 +246,31 @@ def test_debug_log_times_each_stage(still_movie, caplog):
     assert stages == [
         "stage open", "stage reference", "stage frames", "stage beats, maps, regions"
     ]  # fmt: skip
-    assert all(float(m.split(": ")[1].removesuffix(" s")) >= 0 for m in timed)
+    for message in timed:  # "stage frames: 3.00 s (CPU 5.83 s)": wall and CPU time
+        wall, cpu = re.fullmatch(r"stage [a-z, ]+: (\S+) s \(CPU (\S+) s\)", message).groups()
+        assert float(wall) >= 0 and float(cpu) >= 0
+
+
+def test_console_command_exits_with_its_code_after_exit_handlers_and_flushing(tmp_path):
+    """``beatlab`` (cli.run) skips the interpreter's teardown, not the exit handlers, not
+    the output still buffered in a pipe, not the exit code."""
+    code = (
+        "import atexit, sys; from beatlab.cli import run; "
+        "atexit.register(print, 'exit handlers ran'); sys.argv = ['beatlab', *sys.argv[1:]]; "
+        "run()"
+    )
+
+    def console(*args):
+        return subprocess.run(
+            [sys.executable, "-c", code, *args], capture_output=True, text=True, timeout=300
+        )
+
+    ok = console("--help")
+    assert ok.returncode == 0
+    assert "analyze" in ok.stdout and ok.stdout.endswith("exit handlers ran\n")
+    bad = console("analyze", str(tmp_path / "nowhere.tif"))
+    assert bad.returncode == 2
+    assert bad.stderr.startswith("beatlab: error: ") and len(bad.stderr.splitlines()) == 1
 
 
 def test_debug_shows_stage_times_but_not_library_debug_chatter(still_movie, tmp_path):
