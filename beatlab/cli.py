@@ -422,12 +422,24 @@ def _check_replaceable(out: Path) -> None:
 
 
 def _cmd_analyze(args) -> int:
-    from beatlab.io.folders import atomic_folder
     from beatlab.io.writers import check_output_dir
-    from beatlab.pipeline import analyze
 
     out = check_output_dir(_analysis_folder(args))  # before any work, not after it
     _check_replaceable(out)
+    if args.no_figures:
+        return _analyze(args, out, figure_process=None)
+    from beatlab._figure_process import FigureProcess
+
+    # forked now, while this process is small: it loads matplotlib on the other core while
+    # this one loads the analysis, and draws the figures at the end
+    with FigureProcess() as figure_process:
+        return _analyze(args, out, figure_process=figure_process)
+
+
+def _analyze(args, out: Path, *, figure_process) -> int:
+    from beatlab.io.folders import atomic_folder
+    from beatlab.pipeline import analyze
+
     result = analyze(
         args.path,
         args.config,
@@ -440,7 +452,10 @@ def _cmd_analyze(args) -> int:
         progress=True,  # a bar on a terminal, plain lines in a log
     )
     with timed("stage save"), atomic_folder(out) as tmp:  # all of its files or none of them
-        result.save(tmp, figures=not args.no_figures, workers=min(4, os.cpu_count() or 1))
+        result.save(
+            tmp, figures=not args.no_figures, workers=min(4, os.cpu_count() or 1),
+            figure_process=figure_process,
+        )  # fmt: skip
     print(f"{args.path}: {result.headline()} -> {out}")
     return EXIT_OK
 

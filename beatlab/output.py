@@ -44,6 +44,7 @@ def save_analysis(
     figures: bool = True,
     figure_formats: tuple[str, ...] = ("png", "svg"),
     workers: int = 1,
+    figure_process=None,
 ) -> dict[str, Path]:
     """Write summary.json, beats.csv, trace.csv, average_beat.csv, region files, maps, figures.
 
@@ -61,6 +62,9 @@ def save_analysis(
         Image formats of the figures (``png``, ``svg``, ``pdf``).
     workers : int
         Figures drawn at once (forked processes on Linux; 1: in this process).
+    figure_process : beatlab._figure_process.FigureProcess, optional
+        A figure process started earlier: it draws the figures and writes the report (the
+        same files, with the figure libraries loaded ahead of time); it is closed after.
 
     Returns
     -------
@@ -82,7 +86,9 @@ def save_analysis(
         with open(tmp, "wb") as fh:
             np.savez_compressed(fh, **arrays)
     paths["maps"] = out / "maps.npz"
-    if figures:
+    if figures and figure_process is not None:
+        paths.update(figure_process.draw(analysis, out, formats=figure_formats, workers=workers))
+    elif figures:
         from beatlab.plots import save_recording_figures
         from beatlab.report import build_recording_report
 

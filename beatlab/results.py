@@ -113,6 +113,7 @@ class Analysis:
         figures: bool = True,
         figure_formats: tuple[str, ...] = ("png", "svg"),
         workers: int = 1,
+        figure_process=None,
     ) -> dict[str, Path]:
         """Write the output files into ``out_dir`` (created if needed), each atomically.
 
@@ -126,6 +127,9 @@ class Analysis:
             File formats of each figure.
         workers : int
             Figures drawn at once (forked processes on Linux; 1: one after another here).
+        figure_process : beatlab._figure_process.FigureProcess, optional
+            A figure process started before the analysis; it draws the figures and the
+            report (the same files, with matplotlib loaded ahead of time).
 
         Returns
         -------
@@ -135,8 +139,9 @@ class Analysis:
         from beatlab.output import save_analysis
 
         return save_analysis(
-            self, out_dir, figures=figures, figure_formats=figure_formats, workers=workers
-        )
+            self, out_dir, figures=figures, figure_formats=figure_formats, workers=workers,
+            figure_process=figure_process,
+        )  # fmt: skip
 
     def headline(self) -> str:
         """One line for people: beats, rate and rhythm, or each region's when several beat.

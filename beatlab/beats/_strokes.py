@@ -2,8 +2,8 @@
 
 import numpy as np
 import pandas as pd
-from scipy.signal import find_peaks, peak_prominences
 
+from beatlab.beats._peaks import local_maxima, peak_prominences
 from beatlab.beats.baseline import estimate_beat_baselines
 from beatlab.beats.smoothing import smooth_local_quadratic
 
@@ -136,7 +136,7 @@ def secondary_peak_times(
             continue
         peak += int(np.argmax(curve[peak : min(stop, peak + skip) + 1]))
         segment = curve[peak : stop + 1]
-        local, _ = find_peaks(segment)
+        local = local_maxima(segment)
         if local.size == 0:
             continue
         prominence, left_base, _ = peak_prominences(segment, local)

@@ -1,10 +1,8 @@
 """Beat detection on a single-peaked contraction trace."""
 
-import warnings
-
 import numpy as np
-from scipy.signal import find_peaks, peak_prominences
 
+from beatlab.beats._peaks import local_maxima, peak_prominences
 from beatlab.beats._validate import (
     as_times,
     as_trace,
@@ -99,10 +97,11 @@ def detect_beats(
 
     Notes
     -----
-    Candidates are the local maxima of the smoothed trace (``scipy.signal.find_peaks``) with
-    their topographic prominence (``scipy.signal.peak_prominences``): the smaller of the rise
-    from the lowest point within `rise_window_s` before the peak and the fall to the lowest
-    point within `fall_window_s` after it, each searched until a higher sample. A peak within
+    Candidates are the local maxima of the smoothed trace (as ``scipy.signal.find_peaks``
+    defines them) with their topographic prominence (as ``scipy.signal.peak_prominences``):
+    the smaller of the rise from the lowest point within `rise_window_s` before the peak and
+    the fall to the lowest point within `fall_window_s` after it, each searched until a
+    higher sample. A peak within
     `rise_window_s` of the recording start or end, with no higher sample between it and that
     edge, is judged by its other side alone, over `rise_window_s`, so a beat cut by the
     recording edge is found while drift at the edge is not. The noise gate
@@ -152,7 +151,7 @@ def detect_beats(
     slow = _slow_noise(smooth, int(np.ceil(rise_window_s / dt)))
     sigma_gate = max(sigma_smooth, min(slow, _MAX_GATE_INFLATION * sigma_smooth))
 
-    interior, _ = find_peaks(smooth)
+    interior = local_maxima(smooth)
     # smoothing can push a peak one sample from the edge onto the edge sample itself
     edges = [i for i, j in ((0, 1), (values.size - 1, values.size - 2)) if smooth[i] > smooth[j]]
     candidates = np.union1d(interior, np.asarray(edges, dtype=np.intp)).astype(np.intp)
@@ -201,14 +200,12 @@ def detect_beats(
 
 
 def _prominences(smooth, peaks, wlen):
-    """``scipy.signal.peak_prominences`` without its warning about zero prominences.
+    """Topographic prominences and bases within a window of ``wlen`` samples.
 
     A plateau cut by the window (a flat trace smoothed into ripple) has prominence 0: a
     valid answer here, which the noise gate then rejects.
     """
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", message="some peaks have a prominence of 0")
-        return peak_prominences(smooth, peaks, wlen=wlen)
+    return peak_prominences(smooth, peaks, wlen=wlen)
 
 
 def _edge_cut(smooth, candidates, half):

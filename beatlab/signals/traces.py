@@ -3,9 +3,64 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy.signal import savgol_filter
 
-__all__ = ["velocity_trace", "velocity_window_frames"]
+__all__ = ["savgol_derivative", "velocity_trace", "velocity_window_frames"]
+
+
+def savgol_derivative(x: np.ndarray, window: int, polyorder: int, *, delta: float) -> np.ndarray:
+    """First derivative by a Savitzky-Golay filter, edges by a polynomial fit to the first
+    and last windows: ``scipy.signal.savgol_filter(x, window, polyorder, deriv=1,
+    delta=delta, mode="interp")``.
+
+    Written here so that an analysis does not import ``scipy.signal`` (half a second at every
+    start); tests/signals/test_traces.py checks it against scipy.signal to 1e-12.
+
+    Parameters
+    ----------
+    x : ndarray (N,)
+        Evenly sampled values.
+    window : int
+        Odd window length in samples, ``polyorder < window <= N``.
+    polyorder : int
+        Order of the local least-squares polynomial.
+    delta : float
+        Sample spacing (the derivative is per unit of it).
+
+    Returns
+    -------
+    ndarray of float64 (N,)
+
+    Raises
+    ------
+    ValueError
+        An even window, one longer than ``x``, or ``polyorder >= window``.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    window, polyorder = int(window), int(polyorder)
+    if window % 2 == 0 or not polyorder < window <= x.size:
+        raise ValueError(
+            f"window must be odd, above polyorder ({polyorder}) and at most the length "
+            f"({x.size}); got {window}"
+        )
+    half = window // 2
+    powers = np.arange(polyorder + 1)[:, None]
+    target = np.zeros(polyorder + 1)
+    target[1] = 1.0 / delta
+    out = np.empty_like(x)
+    # inside: the derivative at the centre of the least-squares polynomial of each window,
+    # a fixed weighting of the window's samples
+    centre = np.arange(-half, half + 1, dtype=np.float64)
+    weights = np.linalg.lstsq(centre[None, :] ** powers, target, rcond=None)[0]
+    out[half : x.size - half] = np.correlate(x, weights, mode="valid")
+    # edges: the derivative of the polynomial fitted to the first (last) window, at each of
+    # the half window's samples nearest the edge
+    positions = np.arange(window, dtype=np.float64)
+    for part, at in ((slice(0, half), slice(0, window)), (slice(x.size - half, x.size), None)):
+        samples = x[:window] if at is not None else x[x.size - window :]
+        slope = np.polyder(np.polyfit(positions, samples, polyorder))
+        where = positions[:half] if at is not None else positions[window - half :]
+        out[part] = np.polyval(slope, where) / delta
+    return out
 
 
 def velocity_window_frames(times_s: np.ndarray, *, window_ms: float, polyorder: int) -> int:
@@ -69,12 +124,12 @@ def velocity_trace(
     if n <= polyorder:
         return np.gradient(d, t)
     if even:
-        return savgol_filter(d, n, polyorder, deriv=1, delta=step, mode="interp")
+        return savgol_derivative(d, n, polyorder, delta=step)
     grid = np.arange(t[0], t[-1] + step / 2, step)
     # the even grid can hold fewer points than the frames (clustered times): the window
     # must fit it, odd and above the polynomial order, or there is no window at all
     n = min(n, grid.size if grid.size % 2 else grid.size - 1)
     if n <= polyorder:
         return np.gradient(d, t)
-    v = savgol_filter(np.interp(grid, t, d), n, polyorder, deriv=1, delta=step, mode="interp")
+    v = savgol_derivative(np.interp(grid, t, d), n, polyorder, delta=step)
     return np.interp(t, grid, v)

@@ -1,7 +1,7 @@
 import numpy as np
 import pytest
 
-from beatlab.signals.traces import velocity_trace, velocity_window_frames
+from beatlab.signals.traces import savgol_derivative, velocity_trace, velocity_window_frames
 
 
 @pytest.mark.parametrize("fps", [15.0, 30.0, 100.0])
@@ -41,3 +41,25 @@ def test_velocity_window_frames(fps, window_ms, expected):
 
 def test_velocity_window_never_exceeds_the_recording():
     assert velocity_window_frames(np.arange(6) / 10.0, window_ms=5000.0, polyorder=2) == 5
+
+
+@pytest.mark.parametrize(("window", "polyorder"), [(3, 2), (5, 2), (7, 3), (11, 2), (21, 4)])
+def test_savgol_derivative_is_scipy_savgol_filter(window, polyorder):
+    """Against scipy.signal.savgol_filter(deriv=1, mode="interp"), the reference (L)."""
+    from scipy.signal import savgol_filter
+
+    rng = np.random.default_rng(window)
+    x = np.cumsum(rng.normal(size=120)) + np.sin(np.arange(120) / 5.0)
+    for n in (window, window + 1, 120):  # the shortest input takes edge fits only
+        expected = savgol_filter(x[:n], window, polyorder, deriv=1, delta=0.02, mode="interp")
+        found = savgol_derivative(x[:n], window, polyorder, delta=0.02)
+        np.testing.assert_allclose(found, expected, rtol=1e-12, atol=1e-12 * np.abs(x).max())
+
+
+def test_savgol_derivative_refuses_what_scipy_refuses():
+    x = np.arange(10.0)
+    for window, polyorder in ((4, 2), (11, 2), (3, 3)):
+        with pytest.raises(ValueError, match="window must be odd"):
+            savgol_derivative(x, window, polyorder, delta=1.0)
+    # a straight line: the slope everywhere, edges included
+    np.testing.assert_allclose(savgol_derivative(3.0 * x, 5, 2, delta=0.5), 6.0, rtol=1e-12)
