@@ -53,22 +53,32 @@ def _keeping_warnings(job: tuple) -> tuple:
     return result, [(w.category, str(w.message)) for w in caught]
 
 
-def fork_imap(function: Callable, items: Sequence, *, workers: int) -> Iterator:
+def fork_imap(
+    function: Callable, items: Sequence, *, workers: int, meanwhile: Callable | None = None
+) -> Iterator:
     """``function(item)`` for each item, in order, from up to `workers` forked processes.
 
     `function` must be a module-level function (children find it by name) and its results
     picklable; children inherit everything else, so `function` may read state the parent set
     before calling. Warnings a child raises are raised again here (once the item is done),
     so that callers recording warnings see them. One process, or no fork: in this process.
+    `meanwhile()`, if given, runs here once the children have their work (before the first
+    result; in one process, before the first item): work this process would otherwise idle
+    through, which the children must not inherit.
     """
     processes = min(int(workers), len(items))
     if processes <= 1 or not can_fork():
+        if meanwhile is not None:
+            meanwhile()
         for item in items:
             yield function(item)
         return
     jobs = [(function, item) for item in items]
     with single_threaded_libraries(), mp.get_context("fork").Pool(processes) as pool:
-        for result, raised in pool.imap(_keeping_warnings, jobs, chunksize=1):
+        results = pool.imap(_keeping_warnings, jobs, chunksize=1)
+        if meanwhile is not None:
+            meanwhile()
+        for result, raised in results:
             for category, message in raised:
                 warnings.warn(message, category, stacklevel=2)
             yield result

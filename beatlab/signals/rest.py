@@ -326,10 +326,13 @@ def _low_resolution_span(span: tuple[int, int]) -> np.ndarray:
     )
 
 
-def _low_resolution(source, factor: int, *, workers: int, progress: bool) -> np.ndarray:
+def _low_resolution(
+    source, factor: int, *, workers: int, progress: bool, meanwhile=None
+) -> np.ndarray:
     """Every frame block-averaged by ``factor`` (NaN filled), (T, Y', X') float32.
 
-    Forked workers read spans of the file themselves when the source allows it.
+    Forked workers read spans of the file themselves when the source allows it;
+    ``meanwhile()`` runs here while they do.
     """
     n = source.n_frames
     step = max(int(getattr(source, "chunk_frames", 64)), 1)
@@ -339,7 +342,10 @@ def _low_resolution(source, factor: int, *, workers: int, progress: bool) -> np.
     _JOB.update(source=source, factor=factor)
     try:
         with progress_bar(total=n, desc="finding rest frames", enabled=progress) as bar:
-            results = fork_imap(_low_resolution_span, spans, workers=workers if parallel else 1)
+            results = fork_imap(
+                _low_resolution_span, spans, workers=workers if parallel else 1,
+                meanwhile=meanwhile,
+            )  # fmt: skip
             for (start, stop), part in zip(spans, results, strict=True):
                 low[start:stop] = part
                 bar.update(stop - start)
@@ -376,7 +382,7 @@ def _inner_subset(stack: np.ndarray, most: int) -> np.ndarray:
     width = nx - 4
     inner = (ny - 4) * width
     cols = np.arange(0, inner, int(np.ceil(inner / most)) if inner > most else 1)
-    return stack.reshape(n, -1)[:, (2 + cols // width) * nx + 2 + cols % width]
+    return np.take(stack.reshape(n, -1), (2 + cols // width) * nx + 2 + cols % width, axis=1)
 
 
 #: Frames per block of the chunked reductions over the low-resolution stack.
@@ -412,6 +418,7 @@ def estimate_rest_template(
     max_lowres_mb: float = 16.0,
     workers: int = 1,
     progress: bool = False,
+    meanwhile=None,
 ) -> RestTemplate:
     """Find the resting frames of a recording and average them into a rest template.
 
@@ -446,6 +453,10 @@ def estimate_rest_template(
         The result is the same either way.
     progress : bool
         Show a progress bar.
+    meanwhile : callable, optional
+        Called once in this process while forked workers read the file (before reading,
+        without them): work for the next steps that would otherwise wait for the reading,
+        such as loading compiled code.
 
     Returns
     -------
@@ -473,7 +484,7 @@ def estimate_rest_template(
         and min(ny, nx) // (factor + 1) >= 8
     ):
         factor += 1
-    low = _low_resolution(source, factor, workers=workers, progress=progress)
+    low = _low_resolution(source, factor, workers=workers, progress=progress, meanwhile=meanwhile)
     n = low.shape[0]
     if not np.isfinite(low).any():
         name = getattr(getattr(source, "recording", None), "source", "the recording")

@@ -101,3 +101,26 @@ def test_fork_map_keeps_order_and_passes_warnings_back(workers):
     with pytest.warns(BeatlabWarning, match="item 2 is odd"):
         assert fork_map(_warn_and_square, [1, 2, 3, 4], workers=workers) == [1, 4, 9, 16]
     assert list(fork_imap(_warn_and_square, [3, 1], workers=workers)) == [9, 1]
+
+
+_CALLS: list = []
+
+
+def _note_pid(x):
+    import os
+
+    return os.getpid()
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_fork_imap_runs_meanwhile_once_here_before_the_first_result(workers):
+    import os
+
+    from beatlab._fork import fork_imap
+
+    _CALLS.clear()
+    results = fork_imap(_note_pid, [1, 2, 3], workers=workers, meanwhile=lambda: _CALLS.append(1))
+    assert _CALLS == []  # lazy: nothing runs before the first result is asked for
+    pids = list(results)
+    assert _CALLS == [1]  # once, in this process (a child's list would not be this one)
+    assert (set(pids) == {os.getpid()}) == (workers == 1)

@@ -76,6 +76,13 @@ def test_a_stack_is_levelled_exactly_as_frame_by_frame():
     np.testing.assert_allclose(leveller.level_stack(stack), one_by_one, atol=1e-4)
     stack[5, 4, 4] = np.nan  # a NaN at a fitted pixel: frame by frame, same result
     np.testing.assert_allclose(leveller.level_stack(stack)[:5], one_by_one[:5], atol=1e-4)
+    # the planes of a stack are made with the float32 operations of one frame's, bit for bit
+    for tilt in (True, False):
+        leveller = PlaneLeveller(template, tilt=tilt)
+        planes = [np.broadcast_to(leveller._plane(c), template.shape)
+                  for c in leveller.fit_stack(stack[:5])]  # fmt: skip
+        np.testing.assert_array_equal(leveller.level_stack(stack[:5]), stack[:5] - planes)
+    assert leveller.level_stack(stack[:0]).shape == (0, *template.shape)
 
 
 def _tukey_numpy(a, d):
