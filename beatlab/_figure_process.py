@@ -43,7 +43,9 @@ def _draw(analysis, out: Path, formats: tuple[str, ...], workers: int, report: b
     from beatlab.report.recording import build_recording_report
 
     with timed("figures"):
-        paths = save_recording_figures(analysis, out, formats=formats, workers=workers)
+        paths = save_recording_figures(
+            analysis, out, formats=formats, workers=workers, for_report=report
+        )
     if report:
         with timed("report"):
             paths["report"] = build_recording_report(out)

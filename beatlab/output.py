@@ -94,7 +94,9 @@ def save_analysis(
 
         with timed("figures"):
             paths.update(
-                save_recording_figures(analysis, out, formats=figure_formats, workers=workers)
+                save_recording_figures(
+                    analysis, out, formats=figure_formats, workers=workers, for_report=True
+                )
             )
         with timed("report"):
             paths["report"] = build_recording_report(out)

@@ -92,9 +92,13 @@ _DRAW_FIRST = ("maps", "trace", "poincare", "regions", "average_beat")
 _JOB: tuple | None = None
 
 
-def _save_one(name: str) -> None:
-    """Write figure ``name`` of the job (and its table): the work of one forked worker."""
-    analysis, out, formats = _JOB
+def _save_one(name: str):
+    """Write figure ``name`` of the job (and its table): the work of one forked worker.
+
+    Returns the PNG shrunk for the report (:func:`beatlab.report._html.shrink_ahead`) when
+    the job asks for it, else None.
+    """
+    analysis, out, formats, for_report = _JOB
     figure = FIGURES[name]
     table: pd.DataFrame = figure.tabulate(analysis)
     with atomic_path(out / f"{name}{PLOTTED_SUFFIX}") as tmp:
@@ -109,6 +113,11 @@ def _save_one(name: str) -> None:
             whole_figure=True,
             formats=tuple(formats),
         )
+    if for_report and "png" in formats:
+        from beatlab.report._html import shrink_ahead
+
+        return shrink_ahead(out / f"{name}.png")
+    return None
 
 
 def save_recording_figures(
@@ -117,6 +126,7 @@ def save_recording_figures(
     *,
     formats: tuple[str, ...] = ("png", "svg"),
     workers: int = 1,
+    for_report: bool = False,
 ) -> dict[str, Path]:
     """Write every figure of :data:`FIGURES` and the table of what it plots into ``out_dir``.
 
@@ -132,6 +142,10 @@ def save_recording_figures(
         Figures drawn at once, in forked processes on Linux (1: one after another, in this
         process; what a batch worker wants). Drawing is CPU-bound Python, so threads would
         not overlap; the files are the same either way.
+    for_report : bool
+        Also shrink each PNG as :func:`beatlab.report.build_recording_report` embeds it,
+        where it was drawn, and keep it for the report this process writes next (the same
+        report, with that work done in parallel).
 
     Returns
     -------
@@ -154,13 +168,17 @@ def save_recording_figures(
     global _JOB
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    _JOB = (analysis, out, tuple(formats))
+    _JOB = (analysis, out, tuple(formats), bool(for_report))
     try:
         # the costliest first (measured: maps ~2 s, trace ~1.2 s of one core), so that the
         # workers finish together
-        fork_map(_save_one, sorted(FIGURES, key=_DRAW_FIRST.index), workers=workers)
+        shrunk = fork_map(_save_one, sorted(FIGURES, key=_DRAW_FIRST.index), workers=workers)
     finally:
         _JOB = None
+    if for_report:
+        from beatlab.report._html import keep_shrunk
+
+        keep_shrunk(shrunk)
     paths: dict[str, Path] = {}
     for name in FIGURES:
         paths[f"{name}_plotted"] = out / f"{name}{PLOTTED_SUFFIX}"

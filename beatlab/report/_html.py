@@ -8,6 +8,7 @@ that decides. Images are embedded as base64 ``data:`` URIs; nothing refers outsi
 from __future__ import annotations
 
 import base64
+import hashlib
 import html
 import os
 from collections.abc import Iterable, Mapping, Sequence
@@ -267,11 +268,53 @@ def embed_png(
     size = _png_size(data)
     if size is None:
         return None
-    width = max(1, min(max_display_px, round(size[0] * 100 / FIGURE_DPI)))
+    width = _display_width(size, max_display_px)
     if size[0] > density * width:
-        data = _shrink(data, density * width)
+        key = _shrink_key(data, density * width)
+        data = _SHRUNK.pop(key, None) or _shrink(data, density * width)
     source = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
     return Html(f'<img src="{render(source)}" alt="{render(alt)}" width="{width}">')
+
+
+def _display_width(size: tuple[int, int], max_display_px: int) -> int:
+    return max(1, min(max_display_px, round(size[0] * 100 / FIGURE_DPI)))
+
+
+# Embedded images shrunk ahead of time, where the figures were drawn: the digest of the PNG
+# file's bytes and the width -> the bytes embed_png would make of them.
+_SHRUNK: dict[bytes, bytes] = {}
+
+
+def _shrink_key(data: bytes, width_px: int) -> bytes:
+    return hashlib.sha256(data).digest() + width_px.to_bytes(4, "big")
+
+
+def shrink_ahead(
+    path: str | os.PathLike, *, density: int = EMBED_DENSITY, max_display_px: int = 1000
+) -> tuple[bytes, bytes] | None:
+    """Shrink a figure now as :func:`embed_png` will embed it: ``(key, bytes)`` for
+    :func:`keep_shrunk`, or None when it needs no shrinking or is no PNG.
+
+    A recording's figures are drawn in parallel processes and its report is written after
+    them by one; shrinking each where it was drawn takes that work off the report.
+    """
+    try:
+        data = Path(path).read_bytes()
+    except OSError:
+        return None
+    size = _png_size(data)
+    if size is None:
+        return None
+    width = _display_width(size, max_display_px)
+    if size[0] <= density * width:
+        return None
+    return _shrink_key(data, density * width), _shrink(data, density * width)
+
+
+def keep_shrunk(prepared: Iterable[tuple[bytes, bytes] | None]) -> None:
+    """Keep images shrunk by :func:`shrink_ahead` for the next :func:`embed_png` of the same
+    file bytes (each is used once)."""
+    _SHRUNK.update(item for item in prepared if item is not None)
 
 
 def figure(path: str | os.PathLike, *, alt: str, caption, density: int = EMBED_DENSITY) -> Html:

@@ -344,6 +344,38 @@ def test_large_figures_are_embedded_downsampled_at_their_display_size(tmp_path):
     )
 
 
+def test_a_figure_shrunk_ahead_is_embedded_as_it_would_be_shrunk_here(tmp_path, monkeypatch):
+    import matplotlib.pyplot as plt
+
+    import beatlab.report._html as h
+
+    fig, ax = plt.subplots(figsize=(7, 3))
+    ax.plot([0, 1, 2], [0, 1, 0])
+    fig.savefig(tmp_path / "big.png", dpi=300)
+    plt.close(fig)
+    tag = str(h.embed_png(tmp_path / "big.png", alt="x"))  # shrunk here
+    prepared = h.shrink_ahead(tmp_path / "big.png")
+    assert h.shrink_ahead(tmp_path / "big.png", density=10) is None  # small enough as it is
+    assert h.shrink_ahead(tmp_path / "missing.png") is None
+    h.keep_shrunk([prepared, None])
+
+    def no_shrinking_here(data, width_px):
+        raise AssertionError("shrunk again")
+
+    with monkeypatch.context() as patch:
+        patch.setattr(h, "_shrink", no_shrinking_here)
+        assert str(h.embed_png(tmp_path / "big.png", alt="x")) == tag  # the kept bytes
+    assert not h._SHRUNK  # used once
+    # a file changed since: its bytes are not the kept ones, it is shrunk here
+    h.keep_shrunk([prepared])
+    (tmp_path / "big.png").write_bytes((tmp_path / "big.png").read_bytes() + b"\0")
+    with monkeypatch.context() as patch:
+        patch.setattr(h, "_shrink", lambda data, width_px: b"shrunk here")
+        embedded = str(h.embed_png(tmp_path / "big.png", alt="x"))
+    assert base64.b64encode(b"shrunk here").decode() in embedded
+    h._SHRUNK.clear()
+
+
 def test_group_labels_say_each_thing_once():
     from beatlab.report._batch_tables import group_label
 
