@@ -1,16 +1,19 @@
 """Noise level and per-beat baseline of a contraction trace."""
 
+from statistics import NormalDist
+
 import numpy as np
-from scipy.special import ndtri  # the normal quantile function (scipy.stats.norm.ppf)
 
 from beatlab.beats._validate import as_peaks, as_times, as_trace, check_non_negative
 from beatlab.errors import InputError
 
 __all__ = ["NOISE_METHODS", "estimate_beat_baselines", "estimate_noise"]
 
-_MAD_TO_SD = 1.0 / ndtri(0.75)  # 1.4826: MAD of a normal sample -> its SD
+# the normal quantile function (scipy.special.ndtri to 1 ulp), without importing scipy.special
+_NORMAL_QUANTILE = NormalDist().inv_cdf
+_MAD_TO_SD = 1.0 / _NORMAL_QUANTILE(0.75)  # 1.4826: MAD of a normal sample -> its SD
 _FLOOR_QUANTILES = (0.02, 0.20)
-_FLOOR_SPREAD = ndtri(_FLOOR_QUANTILES[1]) - ndtri(_FLOOR_QUANTILES[0])
+_FLOOR_SPREAD = _NORMAL_QUANTILE(_FLOOR_QUANTILES[1]) - _NORMAL_QUANTILE(_FLOOR_QUANTILES[0])
 
 
 def _mad(values):
