@@ -319,7 +319,7 @@ def _template_panel(ax, analysis, geometry):
         extent=geometry.field_extent_um,
         vmin=lo,
         vmax=hi,
-        interpolation="nearest",
+        interpolation="none",
         gid="template",
     )
     ax.contour(
@@ -357,7 +357,7 @@ def _displacement_panel(ax, analysis, table, geometry):
         grey,
         cmap=ListedColormap(["#D9D9D9"]),
         extent=geometry.grid_extent_um,
-        interpolation="nearest",
+        interpolation="none",
         gid="not_beating",
     )
     im = ax.imshow(
@@ -366,7 +366,7 @@ def _displacement_panel(ax, analysis, table, geometry):
         vmin=0.0,
         vmax=float(np.nanmax(amp)),
         extent=geometry.grid_extent_um,
-        interpolation="nearest",
+        interpolation="none",
         gid="amplitude",
     )
     ax.figure.colorbar(im, ax=ax, label=axis_label("peak displacement", "um"), shrink=0.8)
@@ -394,7 +394,7 @@ def _delay_panel(ax, analysis, table, geometry):
         ax.set_title(title)
         return
     im = ax.imshow(
-        delay, cmap="plasma", extent=geometry.grid_extent_um, interpolation="nearest", gid="delay"
+        delay, cmap="plasma", extent=geometry.grid_extent_um, interpolation="none", gid="delay"
     )
     ax.figure.colorbar(im, ax=ax, label=axis_label("onset delay", "ms"), shrink=0.8)
     arrow = table[(table["panel"] == "onset_delay") & (table["series"] == "arrow")]

@@ -119,7 +119,7 @@ def _label_panel(ax, analysis, table):
     template = np.asarray(analysis.template, dtype=float)
     finite = template[np.isfinite(template)]
     lo, hi = np.percentile(finite, [0.5, 99.5]) if finite.size else (0.0, 1.0)
-    ax.imshow(template, cmap="gray", vmin=lo, vmax=hi, extent=extent, interpolation="nearest")
+    ax.imshow(template, cmap="gray", vmin=lo, vmax=hi, extent=extent, interpolation="none")
     labels = np.asarray(analysis.region_labels)
     ids = analysis.regions["region"].to_numpy(dtype=int)
     top = int(max(labels.max(initial=0), ids.max(initial=0)))
@@ -132,7 +132,7 @@ def _label_panel(ax, analysis, table):
         vmax=top + 0.5,
         alpha=0.6,
         extent=extent,
-        interpolation="nearest",
+        interpolation="none",
         gid="region_labels",
     )
     numbers = table[(table["panel"] == "labels") & (table["series"] == "number")]

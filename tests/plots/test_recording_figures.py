@@ -457,3 +457,31 @@ def test_style_helpers():
     assert RC["savefig.dpi"] == 300
     apply_style(matplotlib)
     assert matplotlib.rcParams["savefig.dpi"] == 300
+
+
+def test_image_panels_keep_their_data_pixels_in_vector_output(ead, tmp_path):
+    """Maps and region images are drawn without interpolation ('none'): the PNG shows each
+    data pixel as a block (as 'nearest' does), and the SVG embeds the data at its own size
+    with pixelated rendering instead of a copy resampled to 300 dpi."""
+    import re
+
+    for name in ("maps", "regions"):
+        fig = plt.figure(figsize=FIGURES[name].size(ead))
+        FIGURES[name].draw(ead, fig)
+        images = [a for ax in fig.axes for a in ax.get_children() if isinstance(a, AxesImage)]
+        assert images and {im.get_interpolation() for im in images} == {"none"}, name
+        plt.close(fig)
+    paths = save_recording_figures(ead, tmp_path, formats=("svg",), workers=1)
+    svg = paths["maps_svg"].read_text()
+    assert "image-rendering:pixelated" in svg
+    from base64 import b64decode
+    from io import BytesIO
+
+    from PIL import Image
+
+    embedded = [
+        Image.open(BytesIO(b64decode("".join(data.split())))).size
+        for data in re.findall(r"data:image/png;base64,\s*([A-Za-z0-9+/=\s]+)", svg)
+    ]
+    ny, nx = ead.template.shape
+    assert (nx, ny) in embedded  # the rest template at its own pixels, not at 300 dpi
