@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import itertools
 import logging
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field, replace
 
 import cv2
@@ -449,9 +448,9 @@ def estimate_rest_template(
     workers : int
         Forked worker processes (Linux) that read and block-average spans of the file (where
         the source allows forked reads); 1 reads here. Phase correlation and levelling of the
-        small frames run here, in that many threads (forking for them cost more than it
-        saved: on 1,000 frames of 512 x 512 px, 1.3 s in one process against 1.6-1.7 s with
-        two forked workers). The result is the same either way.
+        small frames run here: forking for them cost more than it saved (measured on 1,000
+        frames of 512 x 512 px: 1.3 s in one process against 1.6-1.7 s with two workers).
+        The result is the same either way.
     progress : bool
         Show a progress bar.
     meanwhile : callable, optional
@@ -502,43 +501,37 @@ def estimate_rest_template(
     # one buffer for the aligned frames of every iteration (the previous ones are not needed
     # once the next reference is made): the pass holds two stacks, not three
     aligned = np.empty_like(low)
-    # the spans of each step in threads: phase correlation and much of the levelling run
-    # outside the GIL (on 1,000 frames: 0.8 -> 0.6 s for the three iterations); the threads
-    # end with the pass, before anything forks; one worker: no thread
-    with ThreadPoolExecutor(max(1, min(int(workers), len(spans)))) as threads:
-        for iteration in range(3):
-            leveller = PlaneLeveller(ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS)
-            _JOB.update(low=low, ref=ref, window=window, leveller=leveller)
-            shifts = np.concatenate(list(threads.map(_phase_shifts, spans)))
-            # stage drift is slow: a running median takes out the estimation noise (and the
-            # brief apparent shift of a contraction), which would otherwise read as motion
-            shifts = _smooth_shifts(shifts)
-            # the reference is made of the frames themselves, so their true shifts to it have a
-            # median of 0; a common offset is a bias of the estimate (seen: phase correlation on
-            # 42 px low-resolution frames read every frame as shifted by the same 1.5 px, which
-            # each iteration then added again)
-            shifts -= np.median(shifts, axis=0)
-            # every frame is treated alike: shifting only some (even exactly, in Fourier space)
-            # changes their noise spectrum, a difference the activity axis would pick up
-            drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
-            if not drifting:
-                shifts[:] = 0.0
-            _JOB.update(shifts=shifts, drifting=drifting)
-            # each span written in place as it arrives: memory stays that of one stack (and a
-            # span per thread)
-            parts = threads.map(_aligned_and_deviation, spans)
-            for (start, stop), (part, dev) in zip(spans, parts, strict=True):
-                aligned[start:stop], deviation[start:stop] = part, dev
-            _JOB.clear()
-            if iteration == 0:
-                # the temporal median is a partly contracted state when beats fill most of the
-                # time; start from the relaxed end of the main activity axis instead
-                inner_px = aligned[0, 2:-2, 2:-2].size
-                score = relaxed_score(_inner_subset(aligned, _SCORE_PIXELS))
-                rest = score <= np.quantile(score, rest_quantile)
-            else:
-                rest = deviation <= np.quantile(deviation, rest_quantile)
-            ref = aligned[rest].mean(axis=0)
+    for iteration in range(3):
+        leveller = PlaneLeveller(ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS)
+        _JOB.update(low=low, ref=ref, window=window, leveller=leveller)
+        shifts = np.concatenate([_phase_shifts(span) for span in spans])
+        # stage drift is slow: a running median takes out the estimation noise (and the
+        # brief apparent shift of a contraction), which would otherwise read as motion
+        shifts = _smooth_shifts(shifts)
+        # the reference is made of the frames themselves, so their true shifts to it have a
+        # median of 0; a common offset is a bias of the estimate (seen: phase correlation on
+        # 42 px low-resolution frames read every frame as shifted by the same 1.5 px, which
+        # each iteration then added again)
+        shifts -= np.median(shifts, axis=0)
+        # every frame is treated alike: shifting only some (even exactly, in Fourier space)
+        # changes their noise spectrum, a difference the activity axis would pick up
+        drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
+        if not drifting:
+            shifts[:] = 0.0
+        _JOB.update(shifts=shifts, drifting=drifting)
+        # each span written in place: memory stays that of one stack
+        for start, stop in spans:
+            aligned[start:stop], deviation[start:stop] = _aligned_and_deviation((start, stop))
+        _JOB.clear()
+        if iteration == 0:
+            # the temporal median is a partly contracted state when beats fill most of the
+            # time; start from the relaxed end of the main activity axis instead
+            inner_px = aligned[0, 2:-2, 2:-2].size
+            score = relaxed_score(_inner_subset(aligned, _SCORE_PIXELS))
+            rest = score <= np.quantile(score, rest_quantile)
+        else:
+            rest = deviation <= np.quantile(deviation, rest_quantile)
+        ref = aligned[rest].mean(axis=0)
     # noise floor of the deviation: consecutive resting frames differ by noise only
     diffs = _successive_rms(aligned)
     floor = float(np.median(diffs) / np.sqrt(2)) if n > 1 else 0.0
