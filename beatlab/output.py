@@ -7,7 +7,6 @@ from pathlib import Path
 
 import numpy as np
 
-from beatlab._progress import timed
 from beatlab.errors import AnalysisError
 from beatlab.io.writers import atomic_path, write_json
 from beatlab.schema import TABLES
@@ -86,18 +85,9 @@ def save_analysis(
         with open(tmp, "wb") as fh:
             np.savez_compressed(fh, **arrays)
     paths["maps"] = out / "maps.npz"
-    if figures and figure_process is not None:
-        paths.update(figure_process.draw(analysis, out, formats=figure_formats, workers=workers))
-    elif figures:
-        from beatlab.plots import save_recording_figures
-        from beatlab.report import build_recording_report
+    if figures:
+        from beatlab._figure_process import FigureProcess
 
-        with timed("figures"):
-            paths.update(
-                save_recording_figures(
-                    analysis, out, formats=figure_formats, workers=workers, for_report=True
-                )
-            )
-        with timed("report"):
-            paths["report"] = build_recording_report(out)
+        drawer = figure_process or FigureProcess(start=False)  # no process: drawn here
+        paths.update(drawer.draw(analysis, out, formats=figure_formats, workers=workers))
     return paths

@@ -55,6 +55,15 @@ def _window(wlen) -> int:
     return int(np.ceil(wlen))
 
 
+def _base(walk: np.ndarray) -> tuple[int, float]:
+    """Offset and value of the lowest sample of ``walk`` (which starts at the peak) before
+    the first higher sample; the nearest to the peak among equal lowest."""
+    stop = np.flatnonzero(~(walk <= walk[0]))  # NaN stops the walk, as a higher sample
+    walk = walk[: max(int(stop[0]), 1)] if stop.size else walk  # the peak at least
+    i = int(np.argmin(walk))  # the first lowest from the peak: the nearest one
+    return i, walk[i]
+
+
 def peak_prominences(
     x: np.ndarray, peaks: np.ndarray, *, wlen: float | None = None
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -96,17 +105,8 @@ def peak_prominences(
         lo, hi = 0, n - 1
         if window >= 2:
             lo, hi = max(peak - window // 2, lo), min(peak + window // 2, hi)
-        top = x[peak]
-        # left: from the peak towards lo, up to (not including) the first higher sample
-        walk = x[lo : peak + 1][::-1]
-        stop = np.flatnonzero(~(walk <= top))  # NaN stops the walk, as a higher sample
-        walk = walk[: max(int(stop[0]), 1)] if stop.size else walk  # the peak at least
-        i = int(np.argmin(walk))  # the first lowest from the peak: the nearest one
-        left_bases[k], left_min = peak - i, walk[i]
-        walk = x[peak : hi + 1]
-        stop = np.flatnonzero(~(walk <= top))
-        walk = walk[: max(int(stop[0]), 1)] if stop.size else walk  # the peak at least
-        i = int(np.argmin(walk))
-        right_bases[k], right_min = peak + i, walk[i]
-        prominences[k] = top - max(left_min, right_min)
+        left, left_min = _base(x[lo : peak + 1][::-1])
+        right, right_min = _base(x[peak : hi + 1])
+        left_bases[k], right_bases[k] = peak - left, peak + right
+        prominences[k] = x[peak] - max(left_min, right_min)
     return prominences, left_bases, right_bases

@@ -165,8 +165,10 @@ def detect_beats(
     inner = np.isin(candidates, interior)
     if np.any(inner):
         peaks_in = candidates[inner]
-        _, left_base, short_base = _prominences(smooth, peaks_in, 2 * half_rise + 1)
-        _, _, right_base = _prominences(smooth, peaks_in, 2 * half_fall + 1)
+        # a plateau cut by the window (a flat trace smoothed into ripple) has prominence 0:
+        # a valid answer here, which the noise gate then rejects
+        _, left_base, short_base = peak_prominences(smooth, peaks_in, wlen=2 * half_rise + 1)
+        _, _, right_base = peak_prominences(smooth, peaks_in, wlen=2 * half_fall + 1)
         rise[inner] = smooth[peaks_in] - smooth[left_base]
         fall[inner] = smooth[peaks_in] - smooth[right_base]
         fall_short[inner] = smooth[peaks_in] - smooth[short_base]
@@ -197,15 +199,6 @@ def detect_beats(
 
     chosen = _enforce_interval(candidates[keep], strength[keep], times, 60.0 / max_rate_bpm)
     return _snap_to_raw_maximum(values, chosen, max(1, round(smooth_s / dt)))
-
-
-def _prominences(smooth, peaks, wlen):
-    """Topographic prominences and bases within a window of ``wlen`` samples.
-
-    A plateau cut by the window (a flat trace smoothed into ripple) has prominence 0: a
-    valid answer here, which the noise gate then rejects.
-    """
-    return peak_prominences(smooth, peaks, wlen=wlen)
 
 
 def _edge_cut(smooth, candidates, half):

@@ -261,6 +261,19 @@ def embed_png(
     Html or None
         None when the file cannot be read or is not a PNG image.
     """
+    read = _read_png(path, density=density, max_display_px=max_display_px)
+    if read is None:
+        return None
+    data, width, shrink_to = read
+    if shrink_to:
+        data = _SHRUNK.pop(_shrink_key(data, shrink_to), None) or _shrink(data, shrink_to)
+    source = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+    return Html(f'<img src="{render(source)}" alt="{render(alt)}" width="{width}">')
+
+
+def _read_png(path, *, density: int, max_display_px: int) -> tuple[bytes, int, int] | None:
+    """The file's bytes, its shown width and the width to shrink it to (0: as it is), or
+    None when it cannot be read or is no PNG."""
     try:
         data = Path(path).read_bytes()
     except OSError:
@@ -268,16 +281,8 @@ def embed_png(
     size = _png_size(data)
     if size is None:
         return None
-    width = _display_width(size, max_display_px)
-    if size[0] > density * width:
-        key = _shrink_key(data, density * width)
-        data = _SHRUNK.pop(key, None) or _shrink(data, density * width)
-    source = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
-    return Html(f'<img src="{render(source)}" alt="{render(alt)}" width="{width}">')
-
-
-def _display_width(size: tuple[int, int], max_display_px: int) -> int:
-    return max(1, min(max_display_px, round(size[0] * 100 / FIGURE_DPI)))
+    width = max(1, min(max_display_px, round(size[0] * 100 / FIGURE_DPI)))
+    return data, width, density * width if size[0] > density * width else 0
 
 
 # Embedded images shrunk ahead of time, where the figures were drawn: the digest of the PNG
@@ -298,17 +303,11 @@ def shrink_ahead(
     A recording's figures are drawn in parallel processes and its report is written after
     them by one; shrinking each where it was drawn takes that work off the report.
     """
-    try:
-        data = Path(path).read_bytes()
-    except OSError:
+    read = _read_png(path, density=density, max_display_px=max_display_px)
+    if read is None or not read[2]:
         return None
-    size = _png_size(data)
-    if size is None:
-        return None
-    width = _display_width(size, max_display_px)
-    if size[0] <= density * width:
-        return None
-    return _shrink_key(data, density * width), _shrink(data, density * width)
+    data, _, shrink_to = read
+    return _shrink_key(data, shrink_to), _shrink(data, shrink_to)
 
 
 def keep_shrunk(prepared: Iterable[tuple[bytes, bytes] | None]) -> None:

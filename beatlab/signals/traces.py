@@ -55,10 +55,11 @@ def savgol_derivative(x: np.ndarray, window: int, polyorder: int, *, delta: floa
     # edges: the derivative of the polynomial fitted to the first (last) window, at each of
     # the half window's samples nearest the edge
     positions = np.arange(window, dtype=np.float64)
-    for part, at in ((slice(0, half), slice(0, window)), (slice(x.size - half, x.size), None)):
-        samples = x[:window] if at is not None else x[x.size - window :]
+    for part, samples, where in (
+        (slice(0, half), x[:window], positions[:half]),
+        (slice(x.size - half, x.size), x[x.size - window :], positions[window - half :]),
+    ):
         slope = np.polyder(np.polyfit(positions, samples, polyorder))
-        where = positions[:half] if at is not None else positions[window - half :]
         out[part] = np.polyval(slope, where) / delta
     return out
 
