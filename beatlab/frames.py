@@ -235,7 +235,7 @@ class OPDSource:
         for i0, block in self._read(self.chunk_frames):
             idx = np.flatnonzero(keep[i0 : i0 + len(block)])
             if idx.size:
-                yield i0 + idx, self._convert_read(block[idx])
+                yield i0 + idx, self._convert_read(_take(block, idx))
 
     def select_indices(self, keep: np.ndarray) -> Iterator[tuple[np.ndarray, None]]:
         """:meth:`select_chunks` without reading: ``(frame_indices, None)`` per chunk, for
@@ -251,7 +251,7 @@ class OPDSource:
         indices = np.asarray(indices, dtype=int)
         lo, hi = int(indices[0]), int(indices[-1]) + 1
         ((_, block),) = self._read(hi - lo, start=lo, stop=hi)
-        return self._convert_read(block[indices - lo])
+        return self._convert_read(_take(block, indices - lo))
 
     @property
     def readable_in_forks(self) -> bool:
@@ -263,3 +263,12 @@ class OPDSource:
     def frame(self, index: int) -> np.ndarray:
         """One OPD frame (Y, X) in nm."""
         return self._convert(self.recording.frame(index)[None])[0]
+
+
+def _take(block: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """``block[idx]`` for sorted indices; a view when they are one run (the usual case: every
+    frame of a chunk), instead of a copy of the whole chunk (~4 ms per 64 frames of 512 px).
+    The frames are read, never written, downstream."""
+    if idx.size and idx[-1] - idx[0] + 1 == idx.size:
+        return block[int(idx[0]) : int(idx[-1]) + 1]
+    return block[idx]

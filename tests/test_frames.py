@@ -140,3 +140,19 @@ def test_binned_frames_with_infinities_are_those_of_the_frames_with_nan_there():
     np.testing.assert_array_equal(np.concatenate([i for i, _ in picked]), [2, 3, 7])
     np.testing.assert_array_equal(np.concatenate([p for _, p in picked]), want[keep])
     np.testing.assert_array_equal(src.frames_at(np.array([1, 2, 4])), want[[1, 2, 4]])
+
+
+def test_runs_of_kept_frames_read_the_same_frames_as_scattered_ones():
+    # A run of consecutive frames is taken as a slice of the chunk (no copy of the chunk);
+    # the frames must be those a scattered selection (fancy indexing) reads.
+    frames = np.random.default_rng(5).normal(300, 20, (12, 16, 16)).astype(np.float32)
+    original = frames.copy()
+    for binning in (1, 2):
+        src = OPDSource(_rec(frames, "opd"), chunk_frames=5, bin=binning)
+        every = np.concatenate([f for _, f in src.select_chunks(np.ones(12, dtype=bool))])
+        one_by_one = np.stack([src.frames_at(np.array([i]))[0] for i in range(12)])
+        np.testing.assert_array_equal(every, one_by_one)
+        np.testing.assert_array_equal(src.frames_at(np.arange(3, 9)), every[3:9])
+        scattered = src.frames_at(np.array([3, 5, 8]))
+        np.testing.assert_array_equal(scattered, every[[3, 5, 8]])
+    np.testing.assert_array_equal(frames, original)  # the recording is read, never written
