@@ -7,13 +7,23 @@ picklable results.
 
 from __future__ import annotations
 
+import mmap
 import multiprocessing as mp
 import sys
 import warnings
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 
-__all__ = ["can_fork", "fork_imap", "fork_map", "single_threaded_libraries"]
+import numpy as np
+
+__all__ = [
+    "ForkPool",
+    "can_fork",
+    "fork_imap",
+    "fork_map",
+    "shared_array",
+    "single_threaded_libraries",
+]
 
 
 def can_fork() -> bool:
@@ -88,3 +98,69 @@ def fork_map(function: Callable, items: Sequence, *, workers: int) -> list:
     """``[function(item) for item in items]``, in up to `workers` forked processes on Linux
     (:func:`fork_imap`)."""
     return list(fork_imap(function, items, workers=workers))
+
+
+def shared_array(shape: tuple[int, ...], dtype) -> np.ndarray:
+    """A zeroed array in anonymous shared memory: what processes forked after it write into
+    it, this process reads (instead of results pickled back through pipes).
+
+    The array keeps its memory map alive; it lives as long as the array (and any view).
+    """
+    dtype = np.dtype(dtype)
+    size = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
+    buffer = mmap.mmap(-1, max(size, 1))  # MAP_SHARED | MAP_ANONYMOUS: inherited by forks
+    return np.frombuffer(buffer, dtype=dtype, count=int(np.prod(shape, dtype=np.int64))).reshape(
+        shape
+    )
+
+
+class ForkPool:
+    """Forked worker processes kept for several maps (Linux), or none: this process.
+
+    The children are forked when the pool is entered and inherit the parent's state *then*;
+    every later map sends them only its items, so a loop of maps over the same large data
+    (an iterative estimate) forks once instead of once per map. Use with ``with``.
+
+    Parameters
+    ----------
+    workers : int
+        Processes; 1 (or a platform that cannot fork) maps in this process.
+    """
+
+    def __init__(self, workers: int):
+        self.workers = max(1, int(workers)) if can_fork() else 1
+        self._pool = None
+        self._limits = None
+
+    def __enter__(self) -> ForkPool:
+        if self.workers > 1:
+            self._limits = single_threaded_libraries()
+            self._limits.__enter__()
+            try:
+                self._pool = mp.get_context("fork").Pool(self.workers)
+            except BaseException:
+                self._limits.__exit__(None, None, None)
+                raise
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._pool is not None:
+            self._pool.terminate()
+            self._pool.join()
+            self._pool = None
+        if self._limits is not None:
+            self._limits.__exit__(*exc)
+            self._limits = None
+
+    def map(self, function: Callable, items: Sequence) -> list:
+        """``[function(item) for item in items]``: `function` module-level, its items and
+        results picklable; warnings raised in a child are raised again here."""
+        if self._pool is None:
+            return [function(item) for item in items]
+        out = []
+        jobs = [(function, item) for item in items]
+        for result, raised in self._pool.imap(_keeping_warnings, jobs, chunksize=1):
+            for category, message in raised:
+                warnings.warn(message, category, stacklevel=2)
+            out.append(result)
+        return out

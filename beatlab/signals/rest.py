@@ -17,7 +17,7 @@ import numpy as np
 from scipy import fft as sp_fft
 from scipy import ndimage
 
-from beatlab._fork import fork_imap
+from beatlab._fork import ForkPool, fork_imap, shared_array
 from beatlab._progress import progress_bar
 from beatlab.errors import InputError
 from beatlab.frames import block_mean
@@ -103,6 +103,8 @@ class RestTemplate:
 #: fitting a quarter of them was measurably faster but changed which frames count as resting,
 #: and with them the trace (tests/pipeline/test_quality_checks.py).
 _REST_LEVEL_PIXELS = 1 << 16
+#: Fewest frames for which the rest pass's iterations run in forked workers.
+_FORK_MIN_FRAMES = 400
 
 
 def _shift_ramp(freq: np.ndarray, shift: float, *, nyquist: int | None) -> np.ndarray:
@@ -354,22 +356,31 @@ def _low_resolution(
     return low
 
 
-def _phase_shifts(span: tuple[int, int]) -> np.ndarray:
-    low, ref, window = _JOB["low"], _JOB["ref"], _JOB["window"]
-    return np.array([_phase_shift(ref, low[t], window) for t in range(*span)]).reshape(-1, 2)
+def _phase_shifts(job: tuple) -> np.ndarray:
+    """Rigid shifts (dx, dy) px of the frames of a span to the current reference (n, 2)."""
+    (start, stop), ref = job
+    low, window = _JOB["low"], _JOB["window"]
+    return np.array([_phase_shift(ref, low[t], window) for t in range(start, stop)]).reshape(-1, 2)
 
 
-def _aligned_and_deviation(span: tuple[int, int]) -> tuple[np.ndarray, np.ndarray]:
-    """Frames of a span aligned (when drifting) and levelled, and their deviation (nm)."""
-    low, ref, shifts = _JOB["low"], _JOB["ref"], _JOB["shifts"]
-    start, stop = span
-    drifting = _JOB["drifting"]
+def _aligned_and_deviation(job: tuple) -> np.ndarray:
+    """Frames of a span aligned (when drifting) and levelled, written into the shared stack
+    ``_JOB["aligned"]``; returns their deviation (nm) from the reference."""
+    (start, stop), ref, shifts, drifting = job
+    low = _JOB["low"]
+    leveller = PlaneLeveller(
+        ref, tilt=_JOB["level_tilt"], step=1, max_pixels=_REST_LEVEL_PIXELS
+    )  # the same for every span: a function of the reference alone
     part = np.stack(
-        [shift_image(low[t], -shifts[t]) if drifting else low[t] for t in range(start, stop)]
+        [
+            shift_image(low[t], -shifts[t - start]) if drifting else low[t]
+            for t in range(start, stop)
+        ]
     )
-    part = _JOB["leveller"].level_stack(part)
+    part = leveller.level_stack(part)
+    _JOB["aligned"][start:stop] = part
     inner = (part - ref)[:, 2:-2, 2:-2]
-    return part, np.sqrt(np.mean(inner**2, axis=(1, 2)))
+    return np.sqrt(np.mean(inner**2, axis=(1, 2)))
 
 
 def _inner_subset(stack: np.ndarray, most: int) -> np.ndarray:
@@ -447,9 +458,11 @@ def estimate_rest_template(
         32 x 32 px for 4,000 frames of a 256 px field.
     workers : int
         Forked worker processes (Linux) that read and block-average spans of the file (where
-        the source allows forked reads); 1 reads here. Phase correlation and levelling of the
-        small frames run here: forking for them cost more than it saved (measured on 1,000
-        frames of 512 x 512 px: 1.3 s in one process against 1.6-1.7 s with two workers).
+        the source allows forked reads); 1 reads here. From 400 frames on, the same number
+        of workers, forked once for all three iterations, also do the phase correlation and
+        levelling of the small frames, writing the levelled frames into shared memory (on
+        1,000 frames of 512 x 512 px: the reference step took 1.37-1.56 s against 1.60-1.77 s
+        in one process; forking new workers for every step had cost more than it saved).
         The result is the same either way.
     progress : bool
         Show a progress bar.
@@ -497,41 +510,48 @@ def estimate_rest_template(
     shifts = np.zeros((n, 2))
     deviation = np.zeros(n)
     rest = np.ones(n, dtype=bool)
-    spans = _spans(n, -(-n // _REDUCE_FRAMES))  # blocks: temporary copies stay small
+    # each iteration's steps over the frames run in forked workers that stay for all three
+    # (forked once: they inherit the small frames and write the aligned ones into shared
+    # memory), or here for short recordings, where forking costs more than it saves
+    processes = workers if n >= _FORK_MIN_FRAMES else 1
+    # blocks: temporary copies stay small; at least two per worker, so that they finish together
+    spans = _spans(n, max(-(-n // _REDUCE_FRAMES), 2 * processes if processes > 1 else 1))
     # one buffer for the aligned frames of every iteration (the previous ones are not needed
     # once the next reference is made): the pass holds two stacks, not three
-    aligned = np.empty_like(low)
-    for iteration in range(3):
-        leveller = PlaneLeveller(ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS)
-        _JOB.update(low=low, ref=ref, window=window, leveller=leveller)
-        shifts = np.concatenate([_phase_shifts(span) for span in spans])
-        # stage drift is slow: a running median takes out the estimation noise (and the
-        # brief apparent shift of a contraction), which would otherwise read as motion
-        shifts = _smooth_shifts(shifts)
-        # the reference is made of the frames themselves, so their true shifts to it have a
-        # median of 0; a common offset is a bias of the estimate (seen: phase correlation on
-        # 42 px low-resolution frames read every frame as shifted by the same 1.5 px, which
-        # each iteration then added again)
-        shifts -= np.median(shifts, axis=0)
-        # every frame is treated alike: shifting only some (even exactly, in Fourier space)
-        # changes their noise spectrum, a difference the activity axis would pick up
-        drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
-        if not drifting:
-            shifts[:] = 0.0
-        _JOB.update(shifts=shifts, drifting=drifting)
-        # each span written in place: memory stays that of one stack
-        for start, stop in spans:
-            aligned[start:stop], deviation[start:stop] = _aligned_and_deviation((start, stop))
+    aligned = shared_array(low.shape, np.float32) if processes > 1 else np.empty_like(low)
+    _JOB.update(low=low, window=window, aligned=aligned, level_tilt=level_tilt)
+    try:
+        with ForkPool(processes) as pool:
+            for iteration in range(3):
+                shifts = np.concatenate(pool.map(_phase_shifts, [(span, ref) for span in spans]))
+                # stage drift is slow: a running median takes out the estimation noise (and the
+                # brief apparent shift of a contraction), which would otherwise read as motion
+                shifts = _smooth_shifts(shifts)
+                # the reference is made of the frames themselves, so their true shifts to it
+                # have a median of 0; a common offset is a bias of the estimate (seen: phase
+                # correlation on 42 px low-resolution frames read every frame as shifted by
+                # the same 1.5 px, which each iteration then added again)
+                shifts -= np.median(shifts, axis=0)
+                # every frame is treated alike: shifting only some (even exactly, in Fourier
+                # space) changes their noise spectrum, a difference the activity axis would
+                # pick up
+                drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
+                if not drifting:
+                    shifts[:] = 0.0
+                jobs = [(span, ref, shifts[span[0] : span[1]], drifting) for span in spans]
+                # each span written in place: memory stays that of one stack
+                deviation = np.concatenate(pool.map(_aligned_and_deviation, jobs))
+                if iteration == 0:
+                    # the temporal median is a partly contracted state when beats fill most of
+                    # the time; start from the relaxed end of the main activity axis instead
+                    inner_px = aligned[0, 2:-2, 2:-2].size
+                    score = relaxed_score(_inner_subset(aligned, _SCORE_PIXELS))
+                    rest = score <= np.quantile(score, rest_quantile)
+                else:
+                    rest = deviation <= np.quantile(deviation, rest_quantile)
+                ref = aligned[rest].mean(axis=0)
+    finally:
         _JOB.clear()
-        if iteration == 0:
-            # the temporal median is a partly contracted state when beats fill most of the
-            # time; start from the relaxed end of the main activity axis instead
-            inner_px = aligned[0, 2:-2, 2:-2].size
-            score = relaxed_score(_inner_subset(aligned, _SCORE_PIXELS))
-            rest = score <= np.quantile(score, rest_quantile)
-        else:
-            rest = deviation <= np.quantile(deviation, rest_quantile)
-        ref = aligned[rest].mean(axis=0)
     # noise floor of the deviation: consecutive resting frames differ by noise only
     diffs = _successive_rms(aligned)
     floor = float(np.median(diffs) / np.sqrt(2)) if n > 1 else 0.0

@@ -124,3 +124,41 @@ def test_fork_imap_runs_meanwhile_once_here_before_the_first_result(workers):
     pids = list(results)
     assert _CALLS == [1]  # once, in this process (a child's list would not be this one)
     assert (set(pids) == {os.getpid()}) == (workers == 1)
+
+
+_SHARED = {}
+
+
+def _fill_row(item):
+    import os
+
+    row, value = item
+    _SHARED["array"][row, 0] = value  # written in the child, read by the parent
+    return os.getpid()
+
+
+@pytest.mark.parametrize("workers", [1, 2])
+def test_fork_pool_maps_several_times_with_the_same_children_and_shared_memory(workers):
+    import os
+
+    from beatlab._fork import ForkPool, shared_array
+    from beatlab.errors import BeatlabWarning
+
+    array = shared_array((4, 3), np.float32)
+    assert array.shape == (4, 3) and array.dtype == np.float32 and not array.any()
+    _SHARED["array"] = array
+    try:
+        with ForkPool(workers) as pool:
+            first = pool.map(_fill_row, [(0, 1.0), (1, 2.0), (2, 3.0), (3, 4.0)])
+            with pytest.warns(BeatlabWarning, match="item 2 is odd"):
+                assert pool.map(_warn_and_square, [1, 2, 3]) == [1, 4, 9]
+            second = pool.map(_fill_row, [(0, 5.0), (3, 6.0)])
+    finally:
+        _SHARED.clear()
+    np.testing.assert_array_equal(array[:, 0], [5.0, 2.0, 3.0, 6.0])
+    np.testing.assert_array_equal(array[:, 1:], 0.0)
+    if workers == 1:
+        assert set(first) == set(second) == {os.getpid()}
+    else:  # forked once, on entering: every map runs in those children, no new ones
+        assert os.getpid() not in set(first) | set(second)
+        assert len(set(first) | set(second)) <= workers

@@ -169,9 +169,13 @@ def test_relaxed_end_holds_when_relaxation_ends_abruptly():
     assert score[contracted].min() > 0.9 * score.max()
 
 
-def test_forked_rest_pass_gives_the_same_template_as_one_process():
+def test_forked_rest_pass_gives_the_same_template_as_one_process(monkeypatch):
     """Reading, phase correlation and levelling spread over forked workers (in spans) give
     exactly the one-process result: every frame's work is independent of the others'."""
+    import beatlab.signals.rest as rest_module
+
+    # the iterations fork for long recordings only: this short one forks too
+    monkeypatch.setattr(rest_module, "_FORK_MIN_FRAMES", 1)
     sim = simulate_recording(
         duration_s=4, fps=25, shape_px=(96, 96), rate_bpm=60, stage_drift_um=(1.0, -1.5), rng=4
     )
