@@ -352,18 +352,20 @@ def _coordinate(dot, norm, own_sq, weights, total, group):
     g_norm = group(norm)
     with np.errstate(invalid="ignore", divide="ignore"):
         coord = np.where(g_norm > 0, group(dot) / g_norm, np.nan)
-        for frame, w in weights.items():
-            rest = total - w
-            left = rest > 0
-            safe = np.where(left, rest, 1.0)
-            d, sq = dot[frame], own_sq[frame]
-            loo_dot = np.where(left, (total * d - w * sq) / safe, 0.0)
-            loo_norm = np.where(
-                left, (total**2 * norm - 2 * total * w * d + w**2 * sq) / safe**2, 0.0
-            )
-            g_dot, g_loo = group(loo_dot), group(loo_norm)
-            ratio = np.sqrt(np.where(g_norm > 0, g_loo / g_norm, np.nan))
-            coord[frame] = np.where(g_loo > 0, g_dot / g_loo * ratio, np.nan)
+        if not weights:
+            return coord
+        # every pattern frame at once, one row each: the numbers of one frame at a time
+        frames = list(weights)
+        w = np.stack([weights[f] for f in frames])
+        d, sq = dot[frames], np.stack([own_sq[f] for f in frames])
+        rest = total - w
+        left = rest > 0
+        safe = np.where(left, rest, 1.0)
+        loo_dot = np.where(left, (total * d - w * sq) / safe, 0.0)
+        loo_norm = np.where(left, (total**2 * norm - 2 * total * w * d + w**2 * sq) / safe**2, 0.0)
+        g_dot, g_loo = group(loo_dot), group(loo_norm)
+        ratio = np.sqrt(np.where(g_norm > 0, g_loo / g_norm, np.nan))
+        coord[frames] = np.where(g_loo > 0, g_dot / g_loo * ratio, np.nan)
     return coord
 
 

@@ -198,3 +198,53 @@ def test_weight_family_must_exist_and_not_overlap():
     both = CellIndex.from_maps({"a": (np.array([[0, 1], [1, 1]]), 2)})
     assert both.n_cells == 2
     np.testing.assert_array_equal(PatternAccumulator(both, weight_family="a").cell_group, [0, 1])
+
+
+def test_leave_one_out_of_all_pattern_frames_at_once_is_that_of_one_frame_at_a_time():
+    # The reference: the leave-one-out coordinate computed frame by frame (the formulation
+    # before it was vectorised over the pattern frames); the numbers must be the same.
+    from beatlab.signals.projection import _coordinate
+
+    rng = np.random.default_rng(7)
+    n = 30
+    fields = [rng.normal(0, 1, (*SHAPE, 2)) for _ in range(n)]
+    diffs = [rng.normal(0, 1, SHAPE) for _ in range(n)]
+    top = [2, 5, 11, 17, 23]
+    weights = [1.0, 0.5, 2.0, 1.5, 1.0]
+    index = _index()
+    sums = _run(index, fields, diffs, top, weights)
+    import scipy.sparse as sp
+
+    s_t = sp.csr_matrix(index.families["halves"], dtype=np.float64).T
+
+    def group(cells):
+        return np.asarray(s_t @ np.asarray(cells, dtype=np.float64).T).T
+
+    def one_at_a_time(dot, norm, own_sq):
+        g_norm = group(norm)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            coord = np.where(g_norm > 0, group(dot) / g_norm, np.nan)
+            for frame, w in sums.weights.items():
+                rest = sums.total - w
+                left = rest > 0
+                safe = np.where(left, rest, 1.0)
+                d, sq = dot[frame], own_sq[frame]
+                loo_dot = np.where(left, (sums.total * d - w * sq) / safe, 0.0)
+                loo_norm = np.where(
+                    left,
+                    (sums.total**2 * norm - 2 * sums.total * w * d + w**2 * sq) / safe**2,
+                    0.0,
+                )
+                g_dot, g_loo = group(loo_dot), group(loo_norm)
+                ratio = np.sqrt(np.where(g_norm > 0, g_loo / g_norm, np.nan))
+                coord[frame] = np.where(g_loo > 0, g_dot / g_loo * ratio, np.nan)
+        return coord
+
+    for dot, norm, own in (
+        (sums.field_dot, sums.norm_a, sums.field_sq),
+        (sums.opd_dot, sums.norm_b, sums.opd_sq),
+    ):
+        want = one_at_a_time(dot, norm, own)
+        got = _coordinate(dot, norm, own, sums.weights, sums.total, group)
+        np.testing.assert_array_equal(got, want)
+        assert not np.array_equal(got[top], group(dot)[top] / group(norm))  # left one out
