@@ -36,7 +36,9 @@ Conventions:
   settings without such a name are fixed in the code today.
 - The whole-mask files (`summary.json`, `beats.csv`, `trace.csv`, `average_beat.csv`) describe
   all cells of the analysis mask together; the region files describe each independently
-  beating region on its own, with the same definitions."""
+  beating region on its own, with the same definitions.
+- Figures are saved at their designed size in inches, not trimmed to what is drawn: PNG at
+  300 dpi (a 7 in wide figure is 2,100 px wide), SVG with its text as text."""
 
 TRACES = """\
 Each frame is converted to OPD (nm), levelled against the rest template (offset, and tilt with

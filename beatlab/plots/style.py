@@ -59,7 +59,9 @@ RC = {
     "legend.frameon": False,
     "savefig.dpi": 300,
     "figure.dpi": 100,
-    "savefig.bbox": "tight",
+    # the figure at its designed size (constrained layout keeps everything inside): no
+    # trimming to the drawn extent, which cost a layout pass per file (~14 % of drawing)
+    "savefig.bbox": None,
     "svg.fonttype": "none",
     "axes.prop_cycle": None,
 }

@@ -421,6 +421,9 @@ def test_save_recording_figures_writes_each_figure_and_what_it_plots(ead, tmp_pa
         assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
         with Image.open(png) as image:
             assert image.info["dpi"] == pytest.approx((300, 300), abs=0.1)
+            # saved at the designed size in inches (not trimmed), the layout kept inside it
+            width_in, height_in = figure.size(ead)
+            assert image.size == (round(300 * width_in), round(300 * height_in))
         back = pd.read_csv(paths[f"{name}_plotted"], keep_default_na=False, na_values=[""])
         expected = figure.tabulate(ead)
         assert tuple(back.columns) == PLOTTED_COLUMNS
