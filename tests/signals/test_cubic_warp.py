@@ -78,3 +78,20 @@ def test_prepare_warp_compiles_in_this_process():
 
     prepare_warp()
     assert _warp.signatures  # compiled here: forked workers inherit it
+
+
+@pytest.mark.parametrize(
+    ("shape", "scale"), [((47, 53), 1.0), ((9, 130), 1e3), ((1, 1), 1.0), ((64, 3), 1e-3)]
+)
+def test_spline_coefficients_are_scipys_bit_for_bit(shape, scale):
+    # reference library: scipy.ndimage.spline_filter (order 3, mode "nearest") of the
+    # edge-padded image, cast to float32; the compiled filter must give the same numbers
+    rng = np.random.default_rng(11)
+    image = (scale * (100.0 + 50.0 * rng.standard_normal(shape))).astype(np.float32)
+    padded = np.pad(image.astype(np.float64), PAD_PX, mode="edge")
+    want = ndi.spline_filter(padded, order=3, mode="nearest").astype(np.float32)
+    got = spline_coefficients(image)
+    assert got.dtype == np.float32 and got.shape == want.shape
+    np.testing.assert_array_equal(got, want)
+    # and of a float64 image (the refinement passes float32; callers may pass either)
+    np.testing.assert_array_equal(spline_coefficients(image.astype(np.float64)), want)
