@@ -143,8 +143,8 @@ def test_binned_frames_with_infinities_are_those_of_the_frames_with_nan_there():
 
 
 def test_runs_of_kept_frames_read_the_same_frames_as_scattered_ones():
-    # A run of consecutive frames is taken as a slice of the chunk (no copy of the chunk);
-    # the frames must be those a scattered selection (fancy indexing) reads.
+    # Runs of consecutive frames are converted as slices of the chunk (no copy of the raw
+    # frames); the frames must be those of reading each frame alone.
     frames = np.random.default_rng(5).normal(300, 20, (12, 16, 16)).astype(np.float32)
     original = frames.copy()
     for binning in (1, 2):
@@ -155,4 +155,10 @@ def test_runs_of_kept_frames_read_the_same_frames_as_scattered_ones():
         np.testing.assert_array_equal(src.frames_at(np.arange(3, 9)), every[3:9])
         scattered = src.frames_at(np.array([3, 5, 8]))
         np.testing.assert_array_equal(scattered, every[[3, 5, 8]])
+        runs = np.array([0, 1, 2, 5, 7, 8, 11])  # runs of several frames and single ones
+        np.testing.assert_array_equal(src.frames_at(runs), every[runs])
+        keep = np.isin(np.arange(12), runs)
+        picked = list(src.select_chunks(keep))
+        np.testing.assert_array_equal(np.concatenate([i for i, _ in picked]), runs)
+        np.testing.assert_array_equal(np.concatenate([f for _, f in picked]), every[runs])
     np.testing.assert_array_equal(frames, original)  # the recording is read, never written
