@@ -20,6 +20,7 @@ from beatlab.errors import InputError
 from beatlab.opd import check_cell_sign
 from beatlab.regions import split_regions
 from beatlab.settings import Settings
+from beatlab.signals._running_mean import running_mean_time
 from beatlab.signals.flow import flow_scale
 from beatlab.signals.mask import CellMask, make_cell_mask
 from beatlab.signals.rest import RestTemplate, estimate_rest_template
@@ -137,7 +138,7 @@ def _region_labels(rest, cells, times_s, settings: Settings, pixel_size_um) -> n
     detect = settings.beats.detect_options()
     return split_regions(
         labels,
-        ndimage.uniform_filter1d(rest.activity, 3, axis=0),
+        running_mean_time(rest.activity, 3),
         block_px=int(rest.info["block_factor"]),
         min_area_px=settings.regions.min_area_um2 / pixel_size_um**2,
         merge_correlation=settings.regions.merge_correlation,
@@ -151,8 +152,10 @@ def _load_compiled_code() -> None:
     from beatlab.signals._cubic_warp import prepare_warp
     from beatlab.signals._frame_kernels import prepare_frame_kernels
     from beatlab.signals._level_kernel import prepare_level
+    from beatlab.signals._running_mean import prepare_running_mean
 
     prepare_level()
+    prepare_running_mean()
     prepare_frame_kernels()
     prepare_warp()
 
