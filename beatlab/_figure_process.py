@@ -28,12 +28,20 @@ def _load() -> None:
     import matplotlib
 
     matplotlib.use("Agg", force=False)
+    import matplotlib.backends.backend_agg
+    import matplotlib.backends.backend_svg
     import matplotlib.pyplot
+    import pandas.io.formats.csvs  # noqa: F401  (the plotted tables' writer)
+    from PIL import PngImagePlugin  # noqa: F401
 
     import beatlab.plots.recording
     import beatlab.report.recording  # noqa: F401
     from beatlab.plots.style import apply_style
 
+    try:  # what contour lines are drawn with (the maps' mask outline), when installed
+        import contourpy  # noqa: F401
+    except ImportError:
+        pass
     apply_style(matplotlib)
 
 

@@ -1,18 +1,5 @@
 """Many recordings: plate layouts, the batch runner and well-level tables."""
 
-from beatlab.batch._stats import STANDARD_METRICS, WELL_METRICS, batch_statistics
-from beatlab.batch.cache import ResultCache, recording_key
-from beatlab.batch.flags import FLAG_RULES, quality_columns
-from beatlab.batch.layout import Layout, read_layout, validate_layout
-from beatlab.batch.runner import (
-    BatchResult,
-    analyze_batch,
-    available_cores,
-    compare_batch,
-    illustrate,
-)
-from beatlab.batch.wells import aggregate_wells, normalize_wells
-
 __all__ = [
     "FLAG_RULES",
     "STANDARD_METRICS",
@@ -32,3 +19,40 @@ __all__ = [
     "recording_key",
     "validate_layout",
 ]
+
+# Imported when first used (PEP 562): a module that needs one piece of the batch (the well
+# metrics of a report, say) must not import the runner, the pipeline and scipy.stats with it.
+_LAZY = {
+    "STANDARD_METRICS": "beatlab.batch._stats",
+    "WELL_METRICS": "beatlab.batch._stats",
+    "batch_statistics": "beatlab.batch._stats",
+    "ResultCache": "beatlab.batch.cache",
+    "recording_key": "beatlab.batch.cache",
+    "FLAG_RULES": "beatlab.batch.flags",
+    "quality_columns": "beatlab.batch.flags",
+    "Layout": "beatlab.batch.layout",
+    "read_layout": "beatlab.batch.layout",
+    "validate_layout": "beatlab.batch.layout",
+    "BatchResult": "beatlab.batch.runner",
+    "analyze_batch": "beatlab.batch.runner",
+    "available_cores": "beatlab.batch.runner",
+    "compare_batch": "beatlab.batch.runner",
+    "illustrate": "beatlab.batch.runner",
+    "aggregate_wells": "beatlab.batch.wells",
+    "normalize_wells": "beatlab.batch.wells",
+}
+
+
+def __getattr__(name: str):
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    import importlib
+
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))

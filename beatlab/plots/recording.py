@@ -163,7 +163,7 @@ def save_recording_figures(
         raise ConfigError(
             f"figure formats {unknown} are not supported; pass formats from {list(_FORMATS)}"
         )
-    from beatlab.stages._parallel import fork_map
+    from beatlab._fork import fork_map
 
     global _JOB
     out = Path(out_dir)

@@ -2,6 +2,7 @@ from types import SimpleNamespace
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from beatlab.plots import save_figure
 from beatlab.plots.maps import plot_maps
@@ -72,3 +73,32 @@ def test_plot_maps_three_panels():
     titles = " | ".join(ax.get_title(loc) for ax in fig.axes for loc in ("left", "center"))
     assert "12 cm/s towards 30°" in titles and "beating area 50 %" in titles
     assert all(ax.get_xlabel() == "x (µm)" for ax in fig.axes[::2][:3] if ax.get_xlabel())
+
+
+def test_drawing_a_recording_does_not_import_the_batch_or_the_analysis():
+    # The figure process of ``beatlab analyze`` imports these while the analysis runs on the
+    # other core: pulling in the batch runner, scipy.stats or the analysis stages there cost
+    # 1.4 s of CPU (measured), so the package namespaces load their modules when first used.
+    import subprocess
+    import sys
+
+    code = (
+        "import sys; import beatlab.plots.recording, beatlab.report.recording, "
+        "beatlab._figure_process as f; f._load(); "
+        "heavy = ['beatlab.batch.runner', 'scipy.stats', 'beatlab.stages', 'numba', "
+        "'beatlab.pipeline']; print([m for m in heavy if m in sys.modules])"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, check=True
+    ).stdout
+    assert out.strip() == "[]"
+    import beatlab.batch
+    import beatlab.plots
+    import beatlab.report
+
+    # the lazy names resolve, are listed, and an unknown one is an AttributeError
+    assert callable(beatlab.plots.save_batch_figures) and "plot_plate" in dir(beatlab.plots)
+    assert callable(beatlab.report.build_batch_report)
+    assert callable(beatlab.batch.analyze_batch) and "Layout" in dir(beatlab.batch)
+    with pytest.raises(AttributeError, match="no attribute 'nope'"):
+        _ = beatlab.plots.nope
