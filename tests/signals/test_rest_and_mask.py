@@ -184,3 +184,15 @@ def test_forked_rest_pass_gives_the_same_template_as_one_process(monkeypatch):
     two = estimate_rest_template(source, workers=2)
     for name in ("template", "rest", "deviation", "shifts_px", "noise_var", "activity"):
         np.testing.assert_array_equal(getattr(one, name), getattr(two, name), err_msg=name)
+
+
+def test_pixel_medians_are_numpys_median_over_time():
+    from beatlab.signals.rest import _pixel_medians
+
+    rng = np.random.default_rng(8)
+    for shape in [(7, 5, 9), (10, 40, 30), (1, 3, 3)]:
+        stack = rng.normal(size=shape).astype(np.float32)
+        stack[0, 0, 0] = np.nan  # a NaN pixel stays NaN, as in np.median
+        got = _pixel_medians(stack, block=64)
+        np.testing.assert_array_equal(got, np.median(stack, axis=0))
+        assert got.dtype == np.median(stack, axis=0).dtype
