@@ -107,11 +107,9 @@ def shared_array(shape: tuple[int, ...], dtype) -> np.ndarray:
     The array keeps its memory map alive; it lives as long as the array (and any view).
     """
     dtype = np.dtype(dtype)
-    size = int(np.prod(shape, dtype=np.int64)) * dtype.itemsize
-    buffer = mmap.mmap(-1, max(size, 1))  # MAP_SHARED | MAP_ANONYMOUS: inherited by forks
-    return np.frombuffer(buffer, dtype=dtype, count=int(np.prod(shape, dtype=np.int64))).reshape(
-        shape
-    )
+    count = int(np.prod(shape, dtype=np.int64))
+    buffer = mmap.mmap(-1, max(count * dtype.itemsize, 1))  # MAP_SHARED | MAP_ANONYMOUS
+    return np.frombuffer(buffer, dtype=dtype, count=count).reshape(shape)
 
 
 class ForkPool:

@@ -186,12 +186,12 @@ class OPDSource:
         frames: each run is a view of the block, so the raw frames are never copied (~4 ms
         per 64 frames of 512 px), only the converted (binned) ones. Every frame converts on
         its own, so the frames are those of converting ``block[idx]`` at once."""
+        if idx.size == 0:
+            return self._convert_read(block[idx])
         breaks = np.flatnonzero(np.diff(idx) != 1) + 1
-        runs = [(int(r[0]), int(r[-1]) + 1) for r in np.split(idx, breaks)] if idx.size else []
+        runs = [(int(r[0]), int(r[-1]) + 1) for r in np.split(idx, breaks)]
         if len(runs) == 1:
             return self._convert_read(block[runs[0][0] : runs[0][1]])
-        if not runs:
-            return self._convert_read(block[idx])
         return np.concatenate([self._convert_read(block[a:b]) for a, b in runs])
 
     def bin_labels(self, labels: np.ndarray) -> np.ndarray:
