@@ -3,6 +3,7 @@
 Research use only: not a diagnostic or medical device.
 """
 
+from beatlab._lazy import lazy_names
 from beatlab._version import __version__
 from beatlab.errors import (
     AnalysisError,
@@ -29,19 +30,7 @@ _LAZY = {
     "read_analysis": "beatlab.results",
 }
 
-
-def __getattr__(name: str):
-    if name in _LAZY:
-        import importlib
-
-        value = getattr(importlib.import_module(_LAZY[name]), name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module 'beatlab' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_LAZY))
+__getattr__, __dir__ = lazy_names(__name__, _LAZY)
 
 
 __all__ = [

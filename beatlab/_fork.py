@@ -63,6 +63,15 @@ def _keeping_warnings(job: tuple) -> tuple:
     return result, [(w.category, str(w.message)) for w in caught]
 
 
+def _warned_again(results: Iterator[tuple]) -> Iterator:
+    """The results of :func:`_keeping_warnings` jobs, each child's warnings raised again here
+    as its result arrives."""
+    for result, raised in results:
+        for category, message in raised:
+            warnings.warn(message, category, stacklevel=3)
+        yield result
+
+
 def fork_imap(
     function: Callable, items: Sequence, *, workers: int, meanwhile: Callable | None = None
 ) -> Iterator:
@@ -88,10 +97,7 @@ def fork_imap(
         results = pool.imap(_keeping_warnings, jobs, chunksize=1)
         if meanwhile is not None:
             meanwhile()
-        for result, raised in results:
-            for category, message in raised:
-                warnings.warn(message, category, stacklevel=2)
-            yield result
+        yield from _warned_again(results)
 
 
 def fork_map(function: Callable, items: Sequence, *, workers: int) -> list:
@@ -155,10 +161,5 @@ class ForkPool:
         results picklable; warnings raised in a child are raised again here."""
         if self._pool is None:
             return [function(item) for item in items]
-        out = []
         jobs = [(function, item) for item in items]
-        for result, raised in self._pool.imap(_keeping_warnings, jobs, chunksize=1):
-            for category, message in raised:
-                warnings.warn(message, category, stacklevel=2)
-            out.append(result)
-        return out
+        return list(_warned_again(self._pool.imap(_keeping_warnings, jobs, chunksize=1)))

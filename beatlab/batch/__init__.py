@@ -1,5 +1,7 @@
 """Many recordings: plate layouts, the batch runner and well-level tables."""
 
+from beatlab._lazy import lazy_names
+
 __all__ = [
     "FLAG_RULES",
     "STANDARD_METRICS",
@@ -42,17 +44,4 @@ _LAZY = {
     "normalize_wells": "beatlab.batch.wells",
 }
 
-
-def __getattr__(name: str):
-    module = _LAZY.get(name)
-    if module is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    import importlib
-
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+__getattr__, __dir__ = lazy_names(__name__, _LAZY)

@@ -12,6 +12,7 @@ import os
 from collections.abc import Callable
 from pathlib import Path
 
+from beatlab._lazy import lazy_names
 from beatlab.io.writers import atomic_path
 
 # Each figure's module is imported when one of its names is first used (PEP 562): drawing a
@@ -41,20 +42,7 @@ _LAZY = {
     "tabulate_trace": "beatlab.plots.trace",
 }
 
-
-def __getattr__(name: str):
-    module = _LAZY.get(name)
-    if module is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    import importlib
-
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+__getattr__, __dir__ = lazy_names(__name__, _LAZY)
 
 
 __all__ = [

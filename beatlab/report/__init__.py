@@ -5,6 +5,8 @@ external resources, so it opens from anywhere (a USB stick, an e-mail attachment
 from a file name, a layout cell or metadata is HTML-escaped.
 """
 
+from beatlab._lazy import lazy_names
+
 __all__ = ["build_batch_report", "build_recording_report"]
 
 # Imported when first used (PEP 562): a recording's report must not import the batch report's
@@ -14,17 +16,4 @@ _LAZY = {
     "build_recording_report": "beatlab.report.recording",
 }
 
-
-def __getattr__(name: str):
-    module = _LAZY.get(name)
-    if module is None:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    import importlib
-
-    value = getattr(importlib.import_module(module), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+__getattr__, __dir__ = lazy_names(__name__, _LAZY)

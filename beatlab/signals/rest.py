@@ -301,7 +301,8 @@ def _filled(frame: np.ndarray) -> np.ndarray:
 
 
 def _phase_shift(ref: np.ndarray, img: np.ndarray, window: np.ndarray) -> np.ndarray:
-    (dx, dy), _ = cv2.phaseCorrelate(ref.astype(np.float64), img.astype(np.float64), window)
+    ref = np.asarray(ref, dtype=np.float64)  # a float64 reference is used as it is
+    (dx, dy), _ = cv2.phaseCorrelate(ref, img.astype(np.float64), window)
     return np.array([dx, dy])
 
 
@@ -360,17 +361,15 @@ def _phase_shifts(job: tuple) -> np.ndarray:
     """Rigid shifts (dx, dy) px of the frames of a span to the current reference (n, 2)."""
     (start, stop), ref = job
     low, window = _JOB["low"], _JOB["window"]
+    ref = ref.astype(np.float64)  # once for the span, not once per frame
     return np.array([_phase_shift(ref, low[t], window) for t in range(start, stop)]).reshape(-1, 2)
 
 
 def _aligned_and_deviation(job: tuple) -> np.ndarray:
     """Frames of a span aligned (when drifting) and levelled, written into the shared stack
     ``_JOB["aligned"]``; returns their deviation (nm) from the reference."""
-    (start, stop), ref, shifts, drifting = job
+    (start, stop), ref, leveller, shifts, drifting = job
     low = _JOB["low"]
-    leveller = PlaneLeveller(
-        ref, tilt=_JOB["level_tilt"], step=1, max_pixels=_REST_LEVEL_PIXELS
-    )  # the same for every span: a function of the reference alone
     part = np.stack(
         [
             shift_image(low[t], -shifts[t - start]) if drifting else low[t]
@@ -532,7 +531,7 @@ def estimate_rest_template(
     # one buffer for the aligned frames of every iteration (the previous ones are not needed
     # once the next reference is made): the pass holds two stacks, not three
     aligned = shared_array(low.shape, np.float32) if processes > 1 else np.empty_like(low)
-    _JOB.update(low=low, window=window, aligned=aligned, level_tilt=level_tilt)
+    _JOB.update(low=low, window=window, aligned=aligned)
     try:
         with ForkPool(processes) as pool:
             for iteration in range(3):
@@ -551,7 +550,12 @@ def estimate_rest_template(
                 drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
                 if not drifting:
                     shifts[:] = 0.0
-                jobs = [(span, ref, shifts[span[0] : span[1]], drifting) for span in spans]
+                leveller = PlaneLeveller(
+                    ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS
+                )
+                jobs = [
+                    (span, ref, leveller, shifts[span[0] : span[1]], drifting) for span in spans
+                ]
                 # each span written in place: memory stays that of one stack
                 deviation = np.concatenate(pool.map(_aligned_and_deviation, jobs))
                 if iteration == 0:
