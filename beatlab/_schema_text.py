@@ -46,7 +46,8 @@ Each frame is converted to OPD (nm), levelled against the rest template (offset,
 closest to the relaxed state.
 
 - `displacement_um`: the dense optical flow from the rest template to the frame (`flow.method`
-  [dis] on a fixed 8-bit mapping of the OPD, refined by `flow.refine_iterations` [2]
+  [dis] on a fixed 8-bit mapping of the OPD, on a grid `flow.coarse_grid_px` [8] px apart
+  where the frame is large enough, refined at every pixel by `flow.refine_iterations` [2]
   Gauss-Newton steps on the unrounded values), minus the rigid whole-field shift (the drift),
   gives a displacement field F_t(x) in px. The contraction pattern A(x) is the weighted mean
   of the fields of the most contracted frames (up to 48, the 15 % whose OPD deviates most

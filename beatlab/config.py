@@ -121,6 +121,14 @@ PARAMETERS: dict[str, dict[str, Param]] = {
             "px",
             lo=0.5,
         ),
+        "coarse_grid_px": P(
+            8,
+            "DIS estimates the coarse flow on a grid this many px apart, which the refinement "
+            "then corrects at every pixel (0: the preset's own, 4 px for fast; smaller frames "
+            "cap it; Farneback does not use it)",
+            "px",
+            choices=(0, 1, 2, 4, 8, 16, 32, 64),
+        ),
         "rigid": P(
             "auto",
             "rigid whole-field shift removal: from background pixels (auto uses "

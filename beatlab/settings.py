@@ -71,6 +71,7 @@ class FlowSettings:
     preset: str
     refine_iterations: int
     window_px: float
+    coarse_grid_px: int
     rigid: str
     percentile_low: float
     percentile_high: float

@@ -19,6 +19,7 @@ Pipeline per frame (:class:`beatlab.signals.tracker.FlowTracker`):
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 
 import cv2
@@ -37,10 +38,12 @@ from beatlab.signals._flow_refine import prepare_reference, refine_with_basis
 from beatlab.signals._frame_kernels import grey_and_uint8
 
 __all__ = [
+    "COARSE_GRIDS_PX",
     "DIS_PRESETS",
     "FARNEBACK_PRESETS",
     "FLOW_METHODS",
     "compute_flow",
+    "dis_finest_level",
     "estimate_rigid_shift",
     "flow_scale",
     "mean_displacement_um",
@@ -67,14 +70,70 @@ _MIN_BACKGROUND_PX = 64
 _MAX_MEDIAN_PX = 65536
 
 
-def _flow_dis(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str) -> np.ndarray:
+#: Choices of the coarse grid (px between the points where DIS estimates the flow): powers of
+#: two, the spacing of the levels of its pyramid; 0 keeps the preset's own.
+COARSE_GRIDS_PX = (0, 1, 2, 4, 8, 16, 32, 64)
+
+
+def check_coarse_grid(grid_px) -> int:
+    """``grid_px`` as an int, or InputError unless it is one of :data:`COARSE_GRIDS_PX`."""
+    if isinstance(grid_px, bool) or grid_px not in COARSE_GRIDS_PX:
+        raise InputError(
+            f"coarse_grid_px must be one of {', '.join(map(str, COARSE_GRIDS_PX))}, got "
+            f"{grid_px!r}; pass a power of two (0: the preset's own)"
+        )
+    return int(grid_px)
+
+
+@functools.lru_cache(maxsize=32)
+def dis_finest_level(shape: tuple[int, int], *, preset: str, grid_px: int) -> int:
+    """The finest pyramid level DIS works at for a coarse grid of ``grid_px`` px.
+
+    Parameters
+    ----------
+    shape : (int, int)
+        Frame shape (Y, X), px.
+    preset : str
+        A key of :data:`DIS_PRESETS` (its patch size and own finest level).
+    grid_px : int
+        One of :data:`COARSE_GRIDS_PX`: level ``log2(grid_px)``; 0 keeps the preset's level.
+
+    Returns
+    -------
+    int
+        The level. Where the frame is too small for it (DIS's coarsest level, OpenCV's rule:
+        ``min(round(log2(max side / (4 patch))), floor(log2(min side / patch)))``, is finer),
+        the coarsest level, but never finer than the preset's own: OpenCV then chooses its
+        levels itself, as it did before this option existed.
+    """
     check_choice("preset", preset, DIS_PRESETS)
+    check_coarse_grid(grid_px)
+    engine = cv2.DISOpticalFlow_create(DIS_PRESETS[preset])
+    own, patch = int(engine.getFinestScale()), int(engine.getPatchSize())
+    if grid_px == 0:
+        return own
+    level = int(grid_px).bit_length() - 1
+    ny, nx = (int(n) for n in shape)
+    coarsest = min(
+        int(np.log2(max(ny, nx) / (4.0 * patch)) + 0.5), int(np.log2(min(ny, nx) / patch))
+    )
+    return level if level <= coarsest else max(coarsest, own)
+
+
+def _flow_dis(
+    reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str, grid_px: int = 0
+) -> np.ndarray:
+    level = dis_finest_level(reference_u8.shape, preset=preset, grid_px=grid_px)
     # A new instance per call: cheap (~10 us) and safe when frames run in parallel threads.
     engine = cv2.DISOpticalFlow_create(DIS_PRESETS[preset])
+    engine.setFinestScale(level)
     return engine.calc(reference_u8, moving_u8, None)
 
 
-def _flow_farneback(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str) -> np.ndarray:
+def _flow_farneback(
+    reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: str, grid_px: int = 0
+) -> np.ndarray:
+    """Farneback estimates at every pixel: ``grid_px`` is accepted and not used."""
     check_choice("preset", preset, FARNEBACK_PRESETS)
     pyr_scale, levels, winsize, iterations, poly_n, poly_sigma = FARNEBACK_PRESETS[preset]
     return cv2.calcOpticalFlowFarneback(
@@ -83,8 +142,8 @@ def _flow_farneback(reference_u8: np.ndarray, moving_u8: np.ndarray, *, preset: 
     )  # fmt: skip
 
 
-#: Coarse dense-flow methods by name; each maps (reference_u8, moving_u8, *, preset) to a
-#: (Y, X, 2) float32 flow (dx, dy) in px.
+#: Coarse dense-flow methods by name; each maps (reference_u8, moving_u8, *, preset, grid_px)
+#: to a (Y, X, 2) float32 flow (dx, dy) in px (``grid_px``: :func:`dis_finest_level`).
 FLOW_METHODS: dict[str, Callable[..., np.ndarray]] = {
     "dis": _flow_dis,
     "farneback": _flow_farneback,
@@ -261,6 +320,7 @@ def compute_flow(
     preset: str = "fast",
     refine_iterations: int = 2,
     window_px: float = 4.0,
+    coarse_grid_px: int = 8,
 ) -> np.ndarray:
     """Dense optical flow from a reference image to a moving image.
 
@@ -278,6 +338,10 @@ def compute_flow(
         the 8-bit images as floats; 0 returns the raw OpenCV flow.
     window_px : float
         Gaussian window (standard deviation, px) of the refinement.
+    coarse_grid_px : int
+        DIS: spacing (px) of the grid it estimates the coarse flow on, one of
+        :data:`COARSE_GRIDS_PX` (:func:`dis_finest_level`; 0: the preset's own). Farneback
+        estimates at every pixel and does not use it.
 
     Returns
     -------
@@ -298,6 +362,7 @@ def compute_flow(
     refinement removes. :class:`FlowTracker` refines on the unquantised images instead.
     """
     check_choice("method", method, FLOW_METHODS)
+    coarse_grid_px = check_coarse_grid(coarse_grid_px)
     ref = check_image("reference_u8", reference_u8, dtype=np.uint8)
     mov = check_image("moving_u8", moving_u8, dtype=np.uint8)
     if mov.shape != ref.shape:
@@ -308,7 +373,8 @@ def compute_flow(
     check_window(window_px, refine_iterations)
     ref = np.ascontiguousarray(ref)
     mov = np.ascontiguousarray(mov)
-    flow = FLOW_METHODS[method](ref, mov, preset=preset).astype(np.float32, copy=False)
+    flow = FLOW_METHODS[method](ref, mov, preset=preset, grid_px=coarse_grid_px)
+    flow = flow.astype(np.float32, copy=False)
     if refine_iterations:
         basis = prepare_reference(ref.astype(np.float32), window_px=window_px)
         flow = refine_with_basis(

@@ -317,16 +317,15 @@ def _spans(n: int, parts: int) -> list[tuple[int, int]]:
     return [(int(a), int(b)) for a, b in itertools.pairwise(edges) if b > a]
 
 
-def _low_resolution_span(span: tuple[int, int]) -> np.ndarray:
-    source, factor = _JOB["source"], _JOB["factor"]
-    start, stop = span
-    return np.stack(
-        [
-            _filled(block_mean(frame, factor))
-            for _, block in source.chunks(start=start, stop=stop)
-            for frame in block
-        ]
-    )
+def _low_resolution_span(span: tuple[int, int]) -> int:
+    """Block-average the frames of a span into ``_JOB["out"]``; returns how many."""
+    source, factor, out = _JOB["source"], _JOB["factor"], _JOB["out"]
+    t = span[0]
+    for _, block in source.chunks(start=span[0], stop=span[1]):
+        for frame in block:
+            out[t] = _filled(block_mean(frame, factor))
+            t += 1
+    return t - span[0]
 
 
 def _low_resolution(
@@ -334,24 +333,26 @@ def _low_resolution(
 ) -> np.ndarray:
     """Every frame block-averaged by ``factor`` (NaN filled), (T, Y', X') float32.
 
-    Forked workers read spans of the file themselves when the source allows it;
-    ``meanwhile()`` runs here while they do.
+    Forked workers read spans of the file themselves when the source allows it, and write
+    the small frames into shared memory (returned through a pipe, they had waited for this
+    process to take them while it ran ``meanwhile()``: the reading and the loading then took
+    as long as one after the other); ``meanwhile()`` runs here while they read.
     """
     n = source.n_frames
     step = max(int(getattr(source, "chunk_frames", 64)), 1)
     spans = [(i, min(i + step, n)) for i in range(0, n, step)]
     parallel = workers > 1 and bool(getattr(source, "readable_in_forks", False))
-    low = np.empty((n, source.shape[0] // factor, source.shape[1] // factor), dtype=np.float32)
-    _JOB.update(source=source, factor=factor)
+    shape = (n, source.shape[0] // factor, source.shape[1] // factor)
+    low = shared_array(shape, np.float32) if parallel else np.empty(shape, dtype=np.float32)
+    _JOB.update(source=source, factor=factor, out=low)
     try:
         with progress_bar(total=n, desc="finding rest frames", enabled=progress) as bar:
             results = fork_imap(
                 _low_resolution_span, spans, workers=workers if parallel else 1,
                 meanwhile=meanwhile,
             )  # fmt: skip
-            for (start, stop), part in zip(spans, results, strict=True):
-                low[start:stop] = part
-                bar.update(stop - start)
+            for count in results:
+                bar.update(count)
     finally:
         _JOB.clear()
     return low

@@ -359,6 +359,7 @@ class _FrameReducer:
                     preset=f.preset,
                     refine_iterations=f.refine_iterations,
                     window_px=f.window_px,
+                    coarse_grid_px=f.coarse_grid_px,
                     scale=reference.flow_scale,
                     background=reference.rigid_pixels,
                 ),

@@ -84,3 +84,29 @@ def test_amplitude_is_proportional_to_strain(runs):
     # measured 0.959-0.981)
     assert max(ratio.values()) / min(ratio.values()) < 1.03, ratio
     assert all(0.95 < r < 1.05 for r in ratio.values()), ratio
+
+
+@pytest.fixture(scope="module")
+def runs_256():
+    """Frames of 256 px, where DIS estimates its coarse flow on the 8 px grid (level 3)."""
+    scene = {**SCENE, "shape_px": (256, 256), "duration_s": 5}
+    return {
+        strain: (sim, analyze_here(as_recording(sim)))
+        for strain in (0.04, 0.01)
+        for sim in [simulate_recording(strain=strain, noise_nm=1.0, **scene)]
+    }
+
+
+def test_coarse_flow_on_an_8_px_grid_keeps_landmarks_and_gain(runs_256):
+    from beatlab.signals.flow import dis_finest_level
+
+    # the frames are large enough for the default grid: the coarse flow is DIS's level 3
+    assert dis_finest_level((256, 256), preset="fast", grid_px=8) == 3
+    ratios = []
+    for strain, (sim, res) in runs_256.items():
+        assert _duration_error_ms(sim, res) == pytest.approx(0.0, abs=5.0), strain
+        ratios.append(np.median(res.beats["displacement_um"]) / _truth_over(sim, res.mask))
+    # the same targets as at 96 px (measured 0.985 and 0.986; 0.982 and 0.986 with the
+    # preset's own 4 px grid)
+    assert all(0.95 < r < 1.05 for r in ratios), ratios
+    assert max(ratios) / min(ratios) < 1.03, ratios

@@ -9,8 +9,10 @@ from skimage.registration import phase_cross_correlation
 
 from beatlab.errors import InputError
 from beatlab.signals.flow import (
+    COARSE_GRIDS_PX,
     FLOW_METHODS,
     compute_flow,
+    dis_finest_level,
     estimate_rigid_shift,
     flow_scale,
     mean_displacement_um,
@@ -78,6 +80,91 @@ def test_gain_within_3_percent(method, contrast, amplitude_px):
     measured_um, _, _ = tracker.displacement(frame)
     gain = measured_um / true_mean_um(field, mask)
     assert abs(gain - 1.0) < 0.03, f"gain {gain:.4f}"
+
+
+def contraction_centres(amplitude_px, *, n, radius_px, centres=9, seed=0):
+    """Several contraction centres of ``radius_px``, largest magnitude ``amplitude_px``."""
+    rows, cols = np.mgrid[0:n, 0:n].astype(float)
+    field = np.zeros((n, n, 2))
+    for cy, cx in np.random.default_rng(seed).uniform(40, n - 40, (centres, 2)):
+        dy, dx = rows - cy, cols - cx
+        g = np.exp(-0.5 * (dx**2 + dy**2) / radius_px**2)
+        field[..., 0] -= dx * g
+        field[..., 1] -= dy * g
+    return field * (amplitude_px / np.hypot(field[..., 0], field[..., 1]).max())
+
+
+@pytest.mark.parametrize(
+    ("radius_px", "amplitude_px", "tolerance"),
+    [
+        # one broad field (radius 51 px): measured 0.996-1.001 on the 8 px grid at contrast
+        # 0.25-2, 0.994-0.998 with the preset's 4 px grid
+        (51, 0.1, 0.01),
+        (51, 1.0, 0.01),
+        (51, 3.0, 0.01),
+        # nine centres of 13 px radius: at 1 px 0.995 (grid 8) and 0.994 (grid 4); at 3 px, a
+        # 25 % local strain, 0.970 and 0.992: the coarser grid starts the refinement further
+        # off where the field turns within a few grid points
+        (13, 1.0, 0.01),
+        (13, 3.0, 0.036),
+    ],
+)
+def test_gain_with_the_coarse_flow_on_an_8_px_grid(radius_px, amplitude_px, tolerance):
+    n = 256  # large enough for DIS's level 3 (an 8 px grid)
+    assert dis_finest_level((n, n), preset="fast", grid_px=8) == 3
+    opd, mask = make_opd(np.random.default_rng(11), n=n)
+    if radius_px == 51:
+        field = contraction_field(amplitude_px, n=n)
+    else:
+        field = contraction_centres(amplitude_px, n=n, radius_px=radius_px)
+    frame = warp_exact(opd, field)
+    tracker = FlowTracker(opd, mask, pixel_size_um=PIXEL_UM, coarse_grid_px=8)
+    gain = tracker.displacement(frame)[0] / true_mean_um(field, mask)
+    assert abs(gain - 1.0) < tolerance, f"gain {gain:.4f}"
+
+
+@pytest.mark.parametrize(
+    ("shape", "preset", "grid_px", "level"),
+    [
+        ((256, 256), "fast", 8, 3),  # OpenCV's coarsest level at 256 px is 3
+        ((512, 512), "fast", 8, 3),
+        ((512, 512), "fast", 16, 4),
+        ((256, 256), "fast", 16, 3),  # capped at the coarsest level
+        ((256, 320), "fast", 2, 1),  # finer than the preset's own when asked
+        ((96, 96), "fast", 8, 2),  # coarsest 2: the preset's own
+        ((64, 64), "fast", 8, 2),  # coarsest 1: never finer than the preset's own
+        ((64, 64), "medium", 8, 1),
+        ((256, 256), "fast", 0, 2),  # OpenCV's presets: fast and ultrafast 2, medium 1
+        ((256, 256), "ultrafast", 0, 2),
+        ((256, 256), "medium", 0, 1),
+    ],
+)
+def test_dis_finest_level(shape, preset, grid_px, level):
+    assert dis_finest_level(shape, preset=preset, grid_px=grid_px) == level
+
+
+def test_coarse_grid_changes_dis_only_where_the_frame_allows_it():
+    for n, differs in ((96, False), (256, True)):
+        opd, _ = make_opd(np.random.default_rng(5), n=n)
+        frame = warp_exact(opd, contraction_field(1.0, n=n))
+        scale = flow_scale(opd)
+        ref_u8, mov_u8 = to_uint8(opd, scale)[0], to_uint8(frame, scale)[0]
+        coarse = compute_flow(ref_u8, mov_u8, refine_iterations=0, coarse_grid_px=8)
+        own = compute_flow(ref_u8, mov_u8, refine_iterations=0, coarse_grid_px=0)
+        assert (not np.array_equal(coarse, own)) is differs, n
+    # Farneback estimates at every pixel: the grid changes nothing
+    farneback = [
+        compute_flow(ref_u8, mov_u8, method="farneback", coarse_grid_px=g) for g in (0, 8)
+    ]
+    np.testing.assert_array_equal(*farneback)
+
+
+@pytest.mark.parametrize("grid_px", [3, -8, 128, 6.0, True])
+def test_coarse_grid_must_be_a_listed_power_of_two(grid_px):
+    assert grid_px not in COARSE_GRIDS_PX or isinstance(grid_px, bool)
+    img = np.zeros((32, 32), np.uint8)
+    with pytest.raises(InputError, match="coarse_grid_px must be one of"):
+        compute_flow(img, img, coarse_grid_px=grid_px)
 
 
 @pytest.mark.parametrize("contrast", [0.25, 2.0])
