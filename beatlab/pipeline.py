@@ -246,7 +246,7 @@ def analyze(
             )  # fmt: skip
             found = analyze_regions(
                 frames, ref, times_s=times, pixel_size_um=float(source.pixel_size_um),
-                settings=settings, start_s=start_s, end_s=end_s,
+                settings=settings, start_s=start_s, end_s=end_s, whole=whole,
             )  # fmt: skip
             if _warn_if_mixed(found.table):
                 maps = _no_propagation_across_regions(maps)

@@ -68,6 +68,7 @@ def analyze_regions(
     settings: Settings,
     start_s: float,
     end_s: float,
+    whole: TraceResult | None = None,
 ) -> RegionResult:
     """Find the independently beating regions and analyse each one.
 
@@ -86,6 +87,10 @@ def analyze_regions(
         each region exactly as the whole field.
     start_s, end_s : float
         Recording start and end, s.
+    whole : TraceResult, optional
+        The whole mask's analysis with the same settings and times: a region whose traces
+        and pattern frames are exactly the whole mask's (one region covering every cell, the
+        usual case) takes it instead of analysing the same numbers again.
 
     Returns
     -------
@@ -110,17 +115,24 @@ def analyze_regions(
     beats, traces = [], []
     for number, members in enumerate(found.members, 1):
         trace, opd = frames.label_union_traces(members)
-        res = analyze_trace(
-            trace,
-            opd,
-            times_s,
-            velocity=settings.velocity,
-            beats=settings.beats,
-            rhythm=settings.rhythm,
-            start_s=start_s,
-            end_s=end_s,
-            pattern_frames=frames.union_pattern_frames(members),
-        )
+        pattern_frames = frames.union_pattern_frames(members)
+        if whole is not None and _same_numbers(
+            (trace, opd, pattern_frames),
+            (frames.displacement_um, frames.opd_change_nm, frames.pattern_frames),
+        ):
+            res = whole
+        else:
+            res = analyze_trace(
+                trace,
+                opd,
+                times_s,
+                velocity=settings.velocity,
+                beats=settings.beats,
+                rhythm=settings.rhythm,
+                start_s=start_s,
+                end_s=end_s,
+                pattern_frames=pattern_frames,
+            )
         results.append(res)
         beats.append(res.beats.assign(region=number)[["region", *res.beats.columns]])
         traces.append(
@@ -142,6 +154,14 @@ def analyze_regions(
         traces=pd.concat(traces, ignore_index=True),
         labels=found.labels,
         results=tuple(results),
+    )
+
+
+def _same_numbers(arrays, others) -> bool:
+    """Whether each array equals its counterpart exactly: same dtype, shape and values."""
+    return all(
+        np.asarray(a).dtype == np.asarray(b).dtype and np.array_equal(a, b)
+        for a, b in zip(arrays, others, strict=True)
     )
 
 

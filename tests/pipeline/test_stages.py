@@ -137,3 +137,36 @@ def test_drift_and_pattern_frames_are_tracked_once_and_read_the_same(drifting, m
     assert set(kept.pattern_frames) <= twice and len(twice) > len(kept.pattern_frames)
     for name in ("displacement_um", "opd_change_nm", "drift_px", "tile_traces_um"):
         np.testing.assert_array_equal(getattr(kept, name), getattr(again, name), err_msg=name)
+
+
+def test_a_region_with_the_whole_masks_traces_takes_the_whole_analysis(drifting):
+    """One region covering every cell has the whole mask's traces, number for number: it
+    takes the whole analysis instead of repeating it, with the same tables as repeating it."""
+    import pandas as pd
+
+    from beatlab.stages import analyze_regions
+
+    _, rec, source = drifting
+    times = np.asarray(rec.times_s)
+    settings = load_settings()
+    ref = prepare_reference(source, times_s=times, settings=settings)
+    frames = measure_frames(source, ref, times_s=times, settings=settings, workers=1)
+    span = dict(start_s=float(times[0]), end_s=float(times[-1] + 1 / FPS))
+    whole = analyze_trace(
+        frames.displacement_um, frames.opd_change_nm, times, velocity=settings.velocity,
+        beats=settings.beats, rhythm=settings.rhythm, pattern_frames=frames.pattern_frames,
+        **span,
+    )  # fmt: skip
+    kw = dict(times_s=times, pixel_size_um=float(source.pixel_size_um), settings=settings)
+    reused = analyze_regions(frames, ref, whole=whole, **kw, **span)
+    repeated = analyze_regions(frames, ref, **kw, **span)
+    assert len(reused.results) == 1 and reused.results[0] is whole
+    assert repeated.results[0] is not whole
+    for name in ("table", "beats", "traces"):
+        pd.testing.assert_frame_equal(getattr(reused, name), getattr(repeated, name))
+    # where the whole mask's trace differs from the region's (here: made to), the region is
+    # analysed on its own numbers
+    changed = dataclasses.replace(frames, displacement_um=frames.displacement_um * 1.5)
+    own = analyze_regions(changed, ref, whole=whole, **kw, **span)
+    assert own.results[0] is not whole
+    pd.testing.assert_frame_equal(own.beats, repeated.beats)

@@ -104,3 +104,20 @@ def test_closed_unused_or_while_drawing_the_process_is_stopped_and_reaped(
     drawing._jobs.send((analysis, tmp_path, ("png",), 1, True))  # the caller then fails
     drawing.close()
     assert drawing.returncode == -15  # SIGTERM: not left drawing into a removed folder
+
+
+@forks
+def test_the_process_runs_at_a_lower_priority_than_the_analysis(analysis, tmp_path, monkeypatch):
+    """Its imports take only the cycles the analysis leaves idle: it is niced (and its
+    drawing workers, forked from it, with it); this process keeps its own priority."""
+    import os
+
+    def report_nice(*job):
+        return {"nice": os.nice(0)}
+
+    monkeypatch.setattr(fp_module, "_draw", report_nice)
+    before = os.nice(0)
+    with FigureProcess() as process:
+        niced = process.draw(analysis, tmp_path)["nice"]
+    assert os.nice(0) == before
+    assert niced == min(before + fp_module.FIGURE_NICE, 19)
