@@ -413,6 +413,13 @@ def _pixel_medians(stack: np.ndarray, block: int = 512) -> np.ndarray:
     return np.concatenate(parts).reshape(stack.shape[1:]) if parts else np.median(stack, axis=0)
 
 
+def _median_span(span: tuple[int, int]) -> np.ndarray:
+    """:func:`_pixel_medians` of the pixels ``[start, stop)`` (flat) of ``_JOB["low"]``."""
+    low = _JOB["low"]
+    start, stop = span
+    return _pixel_medians(low.reshape(low.shape[0], -1)[:, start:stop, None]).ravel()
+
+
 def _successive_rms(stack: np.ndarray) -> np.ndarray:
     """RMS over the inner pixels of each difference of successive frames (T - 1,), by blocks."""
     n = stack.shape[0]
@@ -519,7 +526,6 @@ def estimate_rest_template(
             "(check the export that wrote the file)"
         )
     window = cv2.createHanningWindow(low.shape[:0:-1], cv2.CV_64F)
-    ref = _pixel_medians(low)
     shifts = np.zeros((n, 2))
     deviation = np.zeros(n)
     rest = np.ones(n, dtype=bool)
@@ -535,6 +541,9 @@ def estimate_rest_template(
     _JOB.update(low=low, window=window, aligned=aligned)
     try:
         with ForkPool(processes) as pool:
+            # the first reference: each pixel's median over time, pixels shared by the workers
+            pixels = _spans(low[0].size, 2 * processes if processes > 1 else 1)
+            ref = np.concatenate(pool.map(_median_span, pixels)).reshape(low.shape[1:])
             for iteration in range(3):
                 shifts = np.concatenate(pool.map(_phase_shifts, [(span, ref) for span in spans]))
                 # stage drift is slow: a running median takes out the estimation noise (and the

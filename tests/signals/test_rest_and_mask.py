@@ -196,3 +196,14 @@ def test_pixel_medians_are_numpys_median_over_time():
         got = _pixel_medians(stack, block=64)
         np.testing.assert_array_equal(got, np.median(stack, axis=0))
         assert got.dtype == np.median(stack, axis=0).dtype
+
+
+def test_median_spans_join_into_numpys_median_over_time(monkeypatch):
+    """The first reference, shared by pixel spans between the rest pass's workers."""
+    import beatlab.signals.rest as rest_module
+
+    stack = np.random.default_rng(9).normal(size=(11, 6, 7)).astype(np.float32)
+    monkeypatch.setitem(rest_module._JOB, "low", stack)
+    parts = [rest_module._median_span(span) for span in rest_module._spans(42, 4)]
+    joined = np.concatenate(parts).reshape(6, 7)
+    np.testing.assert_array_equal(joined, np.median(stack, axis=0))
