@@ -344,6 +344,13 @@ def test_estimate_rigid_shift_prefers_background():
     few = np.zeros((32, 32), bool)
     few[0, :5] = True  # too few background pixels: field median
     np.testing.assert_allclose(estimate_rigid_shift(flow, background=few), (2.0, 0.0))
+    # a pixel with either component non-finite is left out of both medians
+    partial = flow.copy()
+    partial[:6, :, 1] = np.nan  # 192 of the 320 background pixels: their dx (0.5) goes too
+    partial[10:, :, 0] = 7.0
+    partial[10:16, :, 0] = np.nan  # 192 of the 704 moving pixels
+    np.testing.assert_allclose(estimate_rigid_shift(partial, background=background), (0.5, -0.25))
+    np.testing.assert_allclose(estimate_rigid_shift(partial), (7.0, 0.0))
 
 
 def test_mean_displacement_um_subtracts_shift():
