@@ -27,7 +27,8 @@ __all__ = ["FigureProcess"]
 #: only cycles the analysis leaves idle (the serial steps between its parallel ones), and
 #: the drawing at the end, when the analysis only waits for it, runs at full speed anyway.
 #: Measured on the 1,000-frame benchmark recording (2 cores, alternating runs, medians of
-#: six): 6.16 s at normal priority, 5.97 s niced.
+#: six): 6.16 s at normal priority, 5.97 s niced (on a tree that also imported the analysis
+#: lazily, a change since dropped: it alone made no difference, 5.93 against 5.92 s).
 FIGURE_NICE = 19
 
 

@@ -334,9 +334,8 @@ def _low_resolution(
     """Every frame block-averaged by ``factor`` (NaN filled), (T, Y', X') float32.
 
     Forked workers read spans of the file themselves when the source allows it, and write
-    the small frames into shared memory (returned through a pipe, they had waited for this
-    process to take them while it ran ``meanwhile()``: the reading and the loading then took
-    as long as one after the other); ``meanwhile()`` runs here while they read.
+    the small frames into shared memory instead of pickling them back through pipes;
+    ``meanwhile()`` runs here while they read.
     """
     n = source.n_frames
     step = max(int(getattr(source, "chunk_frames", 64)), 1)

@@ -151,7 +151,7 @@ class FlowTracker:
     - window 4 px keeps the gain within 3.6 % even on a field of 13 px radius at 3 px
       amplitude (a 25 % strain), where window 6 px loses 6-10 %.
     - the coarse DIS flow on an 8 px grid (``coarse_grid_px=8``, DIS's pyramid level 3, on
-      frames of 256 px or more) instead of the fast preset's 4 px: DIS costs 0.40 instead of
+      frames of about 180 px or more) instead of the fast preset's 4 px: DIS costs 0.40 instead of
       1.37 ms a 256 px frame (its variational refinement runs on a 32 px image), and the
       refined gain on 256 px frames stays 0.996-1.001 on a broad field at 0.1-3 px, 0.995 on
       nine 13 px centres at 1 px (0.994 on the 4 px grid); only at a 25 % local strain (13 px
