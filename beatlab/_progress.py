@@ -135,6 +135,10 @@ class _Silent:
 
 
 def _in_notebook() -> bool:
+    """Whether tqdm would draw a notebook widget here; without a Jupyter kernel loaded it
+    cannot, and ``tqdm.auto`` (which imports asyncio, ~20 ms) is not imported to find out."""
+    if "ipykernel" not in sys.modules:
+        return False
     from tqdm.auto import tqdm
 
     return any("notebook" in cls.__module__ for cls in tqdm.__mro__)

@@ -312,3 +312,23 @@ def test_out_folder_of_other_files_is_refused_before_any_work(still_movie, tmp_p
     err = capsys.readouterr().err.strip()
     assert err.startswith("beatlab: error: --out") and "other files" in err
     assert [p.name for p in out.iterdir()] == ["chapter1.docx"]
+
+
+def test_notebook_check_without_a_kernel_skips_tqdm_auto():
+    """Outside Jupyter the progress reporter is chosen without importing ``tqdm.auto``
+    (asyncio with it); with a kernel loaded tqdm decides."""
+    code = (
+        "import sys; from beatlab._progress import _in_notebook; "
+        "print(_in_notebook(), 'tqdm.auto' in sys.modules)"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.stdout.split() == ["False", "False"]
+    kernel = (
+        "import sys, types; sys.modules['ipykernel'] = types.ModuleType('ipykernel'); "
+        "from beatlab._progress import _in_notebook; "
+        "print(_in_notebook(), 'tqdm.auto' in sys.modules)"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", kernel], capture_output=True, text=True, timeout=120
+    )
+    assert out.stdout.split() == ["False", "True"]  # asked tqdm: no IPython shell running
