@@ -2,7 +2,8 @@
 
 Private helper of the flow refinement (:mod:`beatlab.signals._flow_refine`). It computes what
 ``scipy.ndimage.map_coordinates(coeffs, [rows + dy, cols + dx], order=3, prefilter=False)``
-does on the B-spline coefficients of an edge-extended image: no position quantisation (unlike
+does on the B-spline coefficients of an edge-extended image (positions in float64, the
+weighted sum of the 16 float32 coefficients in float32): no position quantisation (unlike
 OpenCV's ``remap``, whose 1/32 px position table reads small motions low), about 5x faster
 than scipy at 256 x 256 px (``benchmarks/bench_flow.py``), and it releases the GIL. The
 refinement warps every frame once per Gauss-Newton step, which made the scipy call the
@@ -112,37 +113,54 @@ def _prefilter_columns(c):  # pragma: no cover - compiled; tested through spline
             c[i, j] = z * (c[i + 1, j] - c[i, j])
 
 
-@numba.njit(nogil=True, cache=True, inline="always")
+#: Floating-point liberties of the sampling kernels: fused multiply-adds and reciprocals.
+#: Not reordered sums (a sum could then round differently in the warp and in the residual
+#: products, which must agree bit for bit), nor the no-NaN or no-infinity assumptions (a
+#: non-finite position must still give NaN).
+_SAMPLING_MATH = {"contract", "arcp", "nsz"}
+
+
+@numba.njit(nogil=True, cache=True, inline="always", fastmath=_SAMPLING_MATH)
 def _weights(t):  # pragma: no cover - compiled; tested through warp_cubic
-    """Cubic B-spline weights of the 4 coefficients at offsets -1, 0, 1, 2 of a fraction t."""
-    u = 1.0 - t
+    """Cubic B-spline weights (float32) of the 4 coefficients at offsets -1, 0, 1, 2 of a
+    fraction t (float32)."""
+    u = np.float32(1.0) - t
     t2 = t * t
-    w0 = u * u * u / 6.0
-    w3 = t2 * t / 6.0
-    w1 = (3.0 * t2 * t - 6.0 * t2 + 4.0) / 6.0
-    return w0, w1, 1.0 - w0 - w1 - w3, w3
+    w0 = u * u * u / np.float32(6.0)
+    w3 = t2 * t / np.float32(6.0)
+    w1 = (np.float32(3.0) * t2 * t - np.float32(6.0) * t2 + np.float32(4.0)) / np.float32(6.0)
+    return w0, w1, np.float32(1.0) - w0 - w1 - w3, w3
 
 
-@numba.njit(nogil=True, cache=True, inline="always")
+@numba.njit(nogil=True, cache=True, inline="always", fastmath=_SAMPLING_MATH)
 def _sample(coeffs, pad, y, x, lo, hi_y, hi_x):  # pragma: no cover - compiled
-    """The cubic B-spline of ``coeffs`` at (y, x) (float64), NaN at a non-finite position."""
+    """The cubic B-spline of ``coeffs`` (float32) at (y, x) (float64), float32; NaN at a
+    non-finite position.
+
+    The position and its fraction are float64 (a float32 position 256 px from the origin
+    would be quantised to 3e-5 px); the weights and the 16-term sum are float32, like the
+    coefficients (0.35 instead of 0.45 ms for the products of a 139 x 146 px region;
+    within 6e-5 grey levels of the float64 sum at values of ~100).
+    """
     if not (np.isfinite(y) and np.isfinite(x)):
-        return np.nan
+        return np.float32(np.nan)
     y = min(max(y, lo), hi_y)
     x = min(max(x, lo), hi_x)
     fy = np.floor(y)
     fx = np.floor(x)
     by = int(fy) + pad - 1
     bx = int(fx) + pad - 1
-    wx0, wx1, wx2, wx3 = _weights(x - fx)
-    acc = 0.0
-    for k, wy in enumerate(_weights(y - fy)):
-        row = coeffs[by + k]
-        acc += wy * (wx0 * row[bx] + wx1 * row[bx + 1] + wx2 * row[bx + 2] + wx3 * row[bx + 3])
+    wx0, wx1, wx2, wx3 = _weights(np.float32(x - fx))
+    wy0, wy1, wy2, wy3 = _weights(np.float32(y - fy))
+    r0, r1, r2, r3 = coeffs[by], coeffs[by + 1], coeffs[by + 2], coeffs[by + 3]
+    acc = wy0 * (wx0 * r0[bx] + wx1 * r0[bx + 1] + wx2 * r0[bx + 2] + wx3 * r0[bx + 3])
+    acc += wy1 * (wx0 * r1[bx] + wx1 * r1[bx + 1] + wx2 * r1[bx + 2] + wx3 * r1[bx + 3])
+    acc += wy2 * (wx0 * r2[bx] + wx1 * r2[bx + 1] + wx2 * r2[bx + 2] + wx3 * r2[bx + 3])
+    acc += wy3 * (wx0 * r3[bx] + wx1 * r3[bx + 1] + wx2 * r3[bx + 2] + wx3 * r3[bx + 3])
     return acc
 
 
-@numba.njit(nogil=True, cache=True)
+@numba.njit(nogil=True, cache=True, fastmath=_SAMPLING_MATH)
 def _warp(coeffs, pad, dy, dx, out):  # pragma: no cover - compiled; tested through warp_cubic
     ny, nx = out.shape
     lo = 1.0 - pad
@@ -154,12 +172,12 @@ def _warp(coeffs, pad, dy, dx, out):  # pragma: no cover - compiled; tested thro
     return out
 
 
-@numba.njit(nogil=True, cache=True)
+@numba.njit(nogil=True, cache=True, fastmath=_SAMPLING_MATH)
 def _residual_products(coeffs, pad, flow, reference, basis, products):  # pragma: no cover
     """``products[j] = basis[j] * (warp(coeffs, flow) - reference)``, float32.
 
-    The same float32 operations as :func:`warp_cubic`, then ``error -= reference`` and
-    ``basis[j] * error`` in numpy, in one pass without the intermediate images.
+    The samples of :func:`warp_cubic`, then ``error -= reference`` and ``basis[j] * error``
+    in numpy, in one pass without the intermediate images.
     """
     ny, nx = reference.shape
     lo = 1.0 - pad
@@ -167,9 +185,7 @@ def _residual_products(coeffs, pad, flow, reference, basis, products):  # pragma
     hi_x = nx + pad - 3.0
     for r in range(ny):
         for c in range(nx):
-            warped = np.float32(
-                _sample(coeffs, pad, r + flow[r, c, 1], c + flow[r, c, 0], lo, hi_y, hi_x)
-            )
+            warped = _sample(coeffs, pad, r + flow[r, c, 1], c + flow[r, c, 0], lo, hi_y, hi_x)
             error = warped - reference[r, c]
             for j in range(basis.shape[0]):
                 products[j, r, c] = basis[j, r, c] * error
@@ -179,16 +195,25 @@ def _residual_products(coeffs, pad, flow, reference, basis, products):  # pragma
 def _gauss_newton_update(rows, rhs, flow):  # pragma: no cover - compiled; tested through refine
     """``flow[..., comp] -= sum_j rows[comp, j] * rhs[j]`` for comp 0, 1, float32.
 
-    Summed in the order of ``step = row[0] * rhs[0]; step += row[j] * rhs[j]`` in numpy.
+    Summed in the order of ``step = row[0] * rhs[0]; step += row[j] * rhs[j]`` in numpy,
+    a row at a time: each inner loop runs along contiguous memory, which the compiler turns
+    into vector instructions (the same numbers; 0.04 instead of 0.10 ms for a 139 x 146 px
+    region, whose pixels one at a time went across eight planes).
     """
     k, ny, nx = rhs.shape
+    s0 = np.empty(nx, dtype=np.float32)
+    s1 = np.empty(nx, dtype=np.float32)
     for r in range(ny):
         for c in range(nx):
-            for comp in range(2):
-                step = rows[comp, 0, r, c] * rhs[0, r, c]
-                for j in range(1, k):
-                    step = step + rows[comp, j, r, c] * rhs[j, r, c]
-                flow[r, c, comp] = flow[r, c, comp] - step
+            s0[c] = rows[0, 0, r, c] * rhs[0, r, c]
+            s1[c] = rows[1, 0, r, c] * rhs[0, r, c]
+        for j in range(1, k):
+            for c in range(nx):
+                s0[c] = s0[c] + rows[0, j, r, c] * rhs[j, r, c]
+                s1[c] = s1[c] + rows[1, j, r, c] * rhs[j, r, c]
+        for c in range(nx):
+            flow[r, c, 0] = flow[r, c, 0] - s0[c]
+            flow[r, c, 1] = flow[r, c, 1] - s1[c]
 
 
 def warp_cubic(coeffs: np.ndarray, flow: np.ndarray) -> np.ndarray:
