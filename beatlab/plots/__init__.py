@@ -81,6 +81,7 @@ def save_figure(
     size=(7.0, 3.0),
     whole_figure: bool = False,
     formats: tuple[str, ...] = ("png", "svg"),
+    on_png: Callable | None = None,
 ) -> Path:
     """Draw into a new figure and save it atomically as PNG (and SVG beside it).
 
@@ -94,6 +95,9 @@ def save_figure(
         Figure size in inches.
     formats : tuple of str
         File formats to write.
+    on_png : callable, optional
+        Called, once the PNG is written, with its pixels as drawn: a (height, width, 4)
+        uint8 RGBA view of the canvas (valid during the call only).
 
     Returns
     -------
@@ -101,6 +105,7 @@ def save_figure(
         The PNG path.
     """
     import matplotlib
+    import numpy as np
 
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
@@ -116,6 +121,8 @@ def save_figure(
             target = path.with_suffix(f".{fmt}")
             with atomic_path(target) as tmp:
                 fig.savefig(tmp, format=fmt, **_SAVE_OPTIONS.get(fmt, {}))
+            if fmt == "png" and on_png is not None:
+                on_png(np.asarray(fig.canvas.buffer_rgba()))
             if k == 0:
                 # the layout is in inches: the next formats keep the positions the first
                 # one found instead of solving the constrained layout again

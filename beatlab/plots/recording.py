@@ -103,8 +103,14 @@ def _save_one(name: str):
     table: pd.DataFrame = figure.tabulate(analysis)
     with atomic_path(out / f"{name}{PLOTTED_SUFFIX}") as tmp:
         table.to_csv(tmp, index=False)
+    shrunk = []
     if formats:
         from beatlab.plots import save_figure
+
+        def shrink(pixels):  # from the pixels as drawn, not the file decoded again
+            from beatlab.report._html import shrink_ahead
+
+            shrunk.append(shrink_ahead(out / f"{name}.png", pixels=pixels))
 
         save_figure(
             lambda fig: figure.draw(analysis, fig),
@@ -112,12 +118,9 @@ def _save_one(name: str):
             size=figure.size(analysis),
             whole_figure=True,
             formats=tuple(formats),
+            on_png=shrink if for_report else None,
         )
-    if for_report and "png" in formats:
-        from beatlab.report._html import shrink_ahead
-
-        return shrink_ahead(out / f"{name}.png")
-    return None
+    return shrunk[0] if shrunk else None
 
 
 def save_recording_figures(

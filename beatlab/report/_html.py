@@ -14,6 +14,8 @@ import os
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 
+import numpy as np
+
 from beatlab.io.writers import atomic_path
 from beatlab.report._format import MISSING, format_number
 from beatlab.report._style import CSS
@@ -216,19 +218,28 @@ def _shrink(data: bytes, width_px: int) -> bytes:
         from PIL import Image
 
         with Image.open(io.BytesIO(data)) as image:
-            image = image.convert("RGB")
-            factor = max(1, image.width // width_px)
-            if factor > 1:
-                image = image.reduce(factor)
-            height = max(1, round(image.height * width_px / image.width))
-            if image.width != width_px:
-                image = image.resize((width_px, height), Image.Resampling.BILINEAR)
-            small = image.quantize(colors=256, method=Image.Quantize.FASTOCTREE)
-            buffer = io.BytesIO()
-            small.save(buffer, format="PNG", compress_level=6)  # 9: ~3x the time, ~5 % smaller
-            return buffer.getvalue()
+            return _shrink_image(image, width_px)
     except (ImportError, OSError, ValueError):
         return data
+
+
+def _shrink_image(image, width_px: int) -> bytes:
+    """The PNG bytes of :func:`_shrink` from a PIL image (RGB or RGBA)."""
+    import io
+
+    from PIL import Image
+
+    image = image.convert("RGB")
+    factor = max(1, image.width // width_px)
+    if factor > 1:
+        image = image.reduce(factor)
+    height = max(1, round(image.height * width_px / image.width))
+    if image.width != width_px:
+        image = image.resize((width_px, height), Image.Resampling.BILINEAR)
+    small = image.quantize(colors=256, method=Image.Quantize.FASTOCTREE)
+    buffer = io.BytesIO()
+    small.save(buffer, format="PNG", compress_level=6)  # 9: ~3x the time, ~5 % smaller
+    return buffer.getvalue()
 
 
 def embed_png(
@@ -295,19 +306,30 @@ def _shrink_key(data: bytes, width_px: int) -> bytes:
 
 
 def shrink_ahead(
-    path: str | os.PathLike, *, density: int = EMBED_DENSITY, max_display_px: int = 1000
+    path: str | os.PathLike,
+    *,
+    density: int = EMBED_DENSITY,
+    max_display_px: int = 1000,
+    pixels: np.ndarray | None = None,
 ) -> tuple[bytes, bytes] | None:
     """Shrink a figure now as :func:`embed_png` will embed it: ``(key, bytes)`` for
     :func:`keep_shrunk`, or None when it needs no shrinking or is no PNG.
 
     A recording's figures are drawn in parallel processes and its report is written after
     them by one; shrinking each where it was drawn takes that work off the report.
+    ``pixels``: the file's image as drawn, (height, width, 4) uint8 RGBA, which saves
+    decoding the file again (the same bytes result: PNG is lossless).
     """
     read = _read_png(path, density=density, max_display_px=max_display_px)
     if read is None or not read[2]:
         return None
     data, _, shrink_to = read
-    return _shrink_key(data, shrink_to), _shrink(data, shrink_to)
+    if pixels is None or _png_size(data) != (pixels.shape[1], pixels.shape[0]):
+        return _shrink_key(data, shrink_to), _shrink(data, shrink_to)
+    from PIL import Image
+
+    image = Image.fromarray(np.ascontiguousarray(pixels, dtype=np.uint8), "RGBA")
+    return _shrink_key(data, shrink_to), _shrink_image(image, shrink_to)
 
 
 def keep_shrunk(prepared: Iterable[tuple[bytes, bytes] | None]) -> None:

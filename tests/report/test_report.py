@@ -376,6 +376,31 @@ def test_a_figure_shrunk_ahead_is_embedded_as_it_would_be_shrunk_here(tmp_path, 
     h._SHRUNK.clear()
 
 
+def test_a_figure_shrunk_from_its_drawn_pixels_is_the_figure_shrunk_from_its_file(tmp_path):
+    """save_figure hands over the PNG's pixels as drawn; shrinking those gives the bytes of
+    shrinking the decoded file (what the report would embed), and pixels of another size
+    are not trusted."""
+    from PIL import Image
+
+    import beatlab.report._html as h
+    from beatlab.plots import save_figure
+
+    seen = []
+    path = save_figure(
+        lambda ax: ax.plot([0, 1, 2], [0, 1, 0.5], label="x") and ax.legend(),
+        tmp_path / "big.png", size=(7, 3), formats=("png", "svg"),
+        on_png=lambda pixels: seen.append(pixels.copy()),
+    )  # fmt: skip
+    (pixels,) = seen  # once: for the PNG, not the SVG
+    with Image.open(path) as image:
+        np.testing.assert_array_equal(np.asarray(image.convert("RGBA")), pixels)
+    from_file = h.shrink_ahead(path)
+    assert from_file is not None
+    assert h.shrink_ahead(path, pixels=pixels) == from_file
+    other = np.zeros((10, 20, 4), dtype=np.uint8)  # not the file's size: decoded instead
+    assert h.shrink_ahead(path, pixels=other) == from_file
+
+
 def test_group_labels_say_each_thing_once():
     from beatlab.report._batch_tables import group_label
 
