@@ -54,7 +54,9 @@ def _load() -> None:
     apply_style(matplotlib)
 
 
-def _draw(analysis, out: Path, formats: tuple[str, ...], workers: int, report: bool) -> dict:
+def _draw(
+    analysis, out: Path, formats: tuple[str, ...], workers: int, report: bool, shown_as=None
+) -> dict:
     from beatlab._progress import timed
     from beatlab.plots.recording import save_recording_figures
     from beatlab.report.recording import build_recording_report
@@ -65,7 +67,7 @@ def _draw(analysis, out: Path, formats: tuple[str, ...], workers: int, report: b
         )
     if report:
         with timed("report"):
-            paths["report"] = build_recording_report(out)
+            paths["report"] = build_recording_report(out, shown_as=shown_as)
     return paths
 
 
@@ -166,6 +168,7 @@ class FigureProcess:
         formats: tuple[str, ...] = ("png", "svg"),
         workers: int = 1,
         report: bool = True,
+        shown_as: str | os.PathLike | None = None,
     ) -> dict[str, Path]:
         """Write the figures of ``analysis`` (and ``report.html``) into ``out_dir``.
 
@@ -182,6 +185,8 @@ class FigureProcess:
             Figures drawn at once, in processes forked from the figure process.
         report : bool
             Also write ``report.html`` (:func:`beatlab.report.build_recording_report`).
+        shown_as : path-like, optional
+            The folder as the report names it (default: ``out_dir``).
 
         Returns
         -------
@@ -194,7 +199,8 @@ class FigureProcess:
         Exception
             Whatever drawing raised, raised again here.
         """
-        job = (analysis, Path(out_dir), tuple(formats), int(workers), bool(report))
+        shown = None if shown_as is None else Path(shown_as)
+        job = (analysis, Path(out_dir), tuple(formats), int(workers), bool(report), shown)
         if not self.running:
             return _draw(*job)
         try:

@@ -454,7 +454,7 @@ def _analyze(args, out: Path, *, figure_process) -> int:
     with timed("stage save"), atomic_folder(out) as tmp:  # all of its files or none of them
         result.save(
             tmp, figures=not args.no_figures, workers=min(4, os.cpu_count() or 1),
-            figure_process=figure_process,
+            figure_process=figure_process, shown_as=out,
         )  # fmt: skip
     print(f"{args.path}: {result.headline()} -> {out}")
     return EXIT_OK

@@ -44,6 +44,7 @@ def save_analysis(
     figure_formats: tuple[str, ...] = ("png", "svg"),
     workers: int = 1,
     figure_process=None,
+    shown_as: str | os.PathLike | None = None,
 ) -> dict[str, Path]:
     """Write summary.json, beats.csv, trace.csv, average_beat.csv, region files, maps, figures.
 
@@ -64,6 +65,9 @@ def save_analysis(
     figure_process : beatlab._figure_process.FigureProcess, optional
         A figure process started earlier: it draws the figures and writes the report (the
         same files, with the figure libraries loaded ahead of time); it is closed after.
+    shown_as : path-like, optional
+        The folder as ``report.html`` names it (default: ``out_dir``): the final folder when
+        ``out_dir`` is a temporary one renamed once complete.
 
     Returns
     -------
@@ -89,5 +93,7 @@ def save_analysis(
         from beatlab._figure_process import FigureProcess
 
         drawer = figure_process or FigureProcess(start=False)  # no process: drawn here
-        paths.update(drawer.draw(analysis, out, formats=figure_formats, workers=workers))
+        paths.update(
+            drawer.draw(analysis, out, formats=figure_formats, workers=workers, shown_as=shown_as)
+        )
     return paths

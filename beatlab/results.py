@@ -114,6 +114,7 @@ class Analysis:
         figure_formats: tuple[str, ...] = ("png", "svg"),
         workers: int = 1,
         figure_process=None,
+        shown_as: str | os.PathLike | None = None,
     ) -> dict[str, Path]:
         """Write the output files into ``out_dir`` (created if needed), each atomically.
 
@@ -130,6 +131,9 @@ class Analysis:
         figure_process : beatlab._figure_process.FigureProcess, optional
             A figure process started before the analysis; it draws the figures and the
             report (the same files, with matplotlib loaded ahead of time).
+        shown_as : path-like, optional
+            The folder as ``report.html`` names it (default: ``out_dir``): the final folder
+            when ``out_dir`` is a temporary one renamed once complete.
 
         Returns
         -------
@@ -140,7 +144,7 @@ class Analysis:
 
         return save_analysis(
             self, out_dir, figures=figures, figure_formats=figure_formats, workers=workers,
-            figure_process=figure_process,
+            figure_process=figure_process, shown_as=shown_as,
         )  # fmt: skip
 
     def headline(self) -> str:

@@ -280,6 +280,10 @@ def test_debug_shows_stage_times_but_not_library_debug_chatter(still_movie, tmp_
         assert f"beatlab: DEBUG: stage {stage}: " in out.stderr
     assert "beatlab: DEBUG: figures: " in out.stderr
     assert "findfont" not in out.stderr  # matplotlib's font scoring, at debug level
+    # the report names the folder it ends up in, not the temporary one it was written in
+    report = (tmp_path / "res" / "report.html").read_text(encoding="utf-8")
+    assert f"<td>{tmp_path / 'res'}</td>" in report
+    assert "the analysis folder res." in report and ".part" not in report
 
 
 def test_analysis_folder_is_written_whole_and_replaced_cleanly(still_movie, tmp_path, capsys):

@@ -168,7 +168,7 @@ def save_details(analysis, folder: str | os.PathLike, *, figures: bool = True) -
         report.
     """
     with atomic_folder(folder) as tmp:
-        analysis.save(tmp, figures=figures, figure_formats=("png",))
+        analysis.save(tmp, figures=figures, figure_formats=("png",), shown_as=folder)
 
 
 def init_worker(threads: int) -> None:

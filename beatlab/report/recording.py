@@ -117,7 +117,7 @@ def _metadata(summary: dict) -> Html:
 
 
 def recording_sections(
-    folder: Path, summary: dict, *, created: str
+    folder: Path, summary: dict, *, created: str, shown_as: Path | None = None
 ) -> list[tuple[str, str, Html]]:
     """The sections of a one-recording report: (anchor, title, content) each.
 
@@ -129,11 +129,14 @@ def recording_sections(
         Its ``summary.json``.
     created : str
         When the report is made, for the provenance section.
+    shown_as : Path, optional
+        The folder as the report names it (default: ``folder``).
 
     Returns
     -------
     list of (str, str, Html)
     """
+    shown = folder if shown_as is None else Path(shown_as)
     values = flatten_summary(summary)
     blocks = [
         element("div", element("h3", title) + key_values(pairs))
@@ -144,7 +147,7 @@ def recording_sections(
         if pairs
     ]
     overview = headline_cards(values) + element("div", join(blocks), cls="columns")
-    figures = recording_figures(folder, subject=folder.name) or element(
+    figures = recording_figures(folder, subject=shown.name) or element(
         "p", "No figures in this folder (analyzed with --no-figures?).", cls="note"
     )
     version = summary.get("beatlab_version")
@@ -152,7 +155,7 @@ def recording_sections(
         [
             ("Analysed with beatlab", format_number(version)),
             ("Report created", created),
-            ("Folder", str(folder)),
+            ("Folder", str(shown)),
         ]
     )
     provenance += element("h3", "Recording metadata") + _metadata(summary)
@@ -167,7 +170,9 @@ def recording_sections(
     ]
 
 
-def build_recording_report(analysis_dir: str | os.PathLike, *, out=None) -> Path:
+def build_recording_report(
+    analysis_dir: str | os.PathLike, *, out=None, shown_as: str | os.PathLike | None = None
+) -> Path:
     """Write the HTML report of one recording from its ``beatlab analyze`` output folder.
 
     Parameters
@@ -178,6 +183,9 @@ def build_recording_report(analysis_dir: str | os.PathLike, *, out=None) -> Path
     out : path-like, optional
         The report file, or a folder to hold ``report.html``; default
         ``analysis_dir/report.html``.
+    shown_as : path-like, optional
+        The folder as the report names it (default: ``analysis_dir``): the final folder
+        when the report is written into a temporary one that is renamed once complete.
 
     Returns
     -------
@@ -203,9 +211,10 @@ def build_recording_report(analysis_dir: str | os.PathLike, *, out=None) -> Path
         raise InputError(f"{loaded.note} in {folder}; run beatlab analyze again to rewrite it")
     summary = loaded.data
     created = created_text()
-    sections = recording_sections(folder, summary, created=created)
+    shown = folder if shown_as is None else Path(shown_as)
+    sections = recording_sections(folder, summary, created=created, shown_as=shown)
     metadata = summary.get("metadata") if isinstance(summary.get("metadata"), dict) else {}
-    name = Path(str(metadata.get("source") or folder.name)).name
+    name = Path(str(metadata.get("source") or shown.name)).name
     subtitle = f"{name} · {format_number(summary.get('beat_count'))} beats · " + (
         f"rhythm {summary.get('rhythm') or '—'} · created {created}"
     )
@@ -214,6 +223,6 @@ def build_recording_report(analysis_dir: str | os.PathLike, *, out=None) -> Path
         subtitle=subtitle,
         nav=[(anchor, title) for anchor, title, _ in sections],
         body=join(section(anchor, title, content) for anchor, title, content in sections),
-        footer=footer(wrote=f"the analysis folder {folder.name}", created=created),
+        footer=footer(wrote=f"the analysis folder {shown.name}", created=created),
     )
     return write_document(document, report_target(folder, out))

@@ -69,6 +69,10 @@ def test_batch_with_a_failed_recording_exits_1_and_writes_every_table(batch):
     assert (folder / "figures" / "groups_beat_rate_bpm.png").is_file()
     report = (folder / "report.html").read_text(encoding="utf-8")
     assert "P1_B1" in report and "Research use only" in report
+    # each recording's report names its folder, not the temporary one it was written in
+    own = (folder / "recordings" / "P1_A1" / "report.html").read_text(encoding="utf-8")
+    assert f"<td>{folder / 'recordings' / 'P1_A1'}</td>" in own
+    assert "the analysis folder P1_A1." in own and ".part" not in own
 
 
 def test_second_run_takes_the_finished_recordings_from_the_cache(batch, tmp_path):
