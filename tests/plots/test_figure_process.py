@@ -121,3 +121,20 @@ def test_the_process_runs_at_a_lower_priority_than_the_analysis(analysis, tmp_pa
         niced = process.draw(analysis, tmp_path)["nice"]
     assert os.nice(0) == before
     assert niced == min(before + fp_module.FIGURE_NICE, 19)
+
+
+def test_loading_builds_the_mathtext_grammar_for_the_drawing_workers():
+    """What the figure process loads ahead includes matplotlib's mathtext grammar (built on a
+    process's first parse, ~0.06 s), so that the workers it forks do not each build it."""
+    import subprocess
+    import sys
+
+    code = (
+        "from matplotlib.mathtext import MathTextParser as P; import beatlab._figure_process "
+        "as f; before = P._parser; f._load(); print(before is None, P._parser is not None)"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120)  # fmt: skip
+    if "AttributeError" in done.stderr:  # a matplotlib that keeps its parser elsewhere
+        pytest.skip("matplotlib's mathtext parser is not MathTextParser._parser here")
+    assert done.stdout.split() == ["True", "True"], done.stderr
