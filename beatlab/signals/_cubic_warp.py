@@ -173,20 +173,24 @@ def _warp(coeffs, pad, dy, dx, out):  # pragma: no cover - compiled; tested thro
 
 
 @numba.njit(nogil=True, cache=True, fastmath=_SAMPLING_MATH)
-def _residual_products(coeffs, pad, flow, reference, basis, products):  # pragma: no cover
+def _residual_products(  # pragma: no cover - compiled; tested through residual_products
+    coeffs, pad, flow, reference, basis, products, row0, col0
+):
     """``products[j] = basis[j] * (warp(coeffs, flow) - reference)``, float32.
 
     The samples of :func:`warp_cubic`, then ``error -= reference`` and ``basis[j] * error``
-    in numpy, in one pass without the intermediate images.
+    in numpy, in one pass without the intermediate images. The arrays other than
+    ``coeffs`` may cover a part of its image, whose first pixel is (row0, col0).
     """
     ny, nx = reference.shape
     lo = 1.0 - pad
-    hi_y = ny + pad - 3.0
-    hi_x = nx + pad - 3.0
+    hi_y = coeffs.shape[0] - pad - 3.0
+    hi_x = coeffs.shape[1] - pad - 3.0
     for r in range(ny):
         for c in range(nx):
-            warped = _sample(coeffs, pad, r + flow[r, c, 1], c + flow[r, c, 0], lo, hi_y, hi_x)
-            error = warped - reference[r, c]
+            y = (r + row0) + flow[r, c, 1]
+            x = (c + col0) + flow[r, c, 0]
+            error = _sample(coeffs, pad, y, x, lo, hi_y, hi_x) - reference[r, c]
             for j in range(basis.shape[0]):
                 products[j, r, c] = basis[j, r, c] * error
 
@@ -245,7 +249,13 @@ def warp_cubic(coeffs: np.ndarray, flow: np.ndarray) -> np.ndarray:
 
 
 def residual_products(
-    coeffs: np.ndarray, flow: np.ndarray, reference: np.ndarray, basis: np.ndarray, out: np.ndarray
+    coeffs: np.ndarray,
+    flow: np.ndarray,
+    reference: np.ndarray,
+    basis: np.ndarray,
+    out: np.ndarray,
+    *,
+    origin: tuple[int, int] = (0, 0),
 ) -> np.ndarray:
     """``out[j] = basis[j] * (warp_cubic(coeffs, flow) - reference)`` in one compiled pass.
 
@@ -253,25 +263,35 @@ def residual_products(
     ----------
     coeffs : ndarray (Y + 2 PAD_PX, X + 2 PAD_PX) float32
         From :func:`spline_coefficients`.
-    flow : ndarray (Y, X, 2) float32, C-contiguous
+    flow : ndarray (y, x, 2) float32, C-contiguous
         ``(dx, dy)`` px per pixel.
-    reference : ndarray (Y, X) float32
-    basis : ndarray (k, Y, X) float32
-    out : ndarray (k, Y, X) float32
+    reference : ndarray (y, x) float32
+    basis : ndarray (k, y, x) float32
+    out : ndarray (k, y, x) float32
         Written in place and returned.
+    origin : (int, int)
+        Row and column of the image of ``coeffs`` where the other arrays begin: they may
+        cover a part of it, ``(y, x) <= (Y, X)`` (the numbers of that part of the whole).
 
     Returns
     -------
-    ndarray (k, Y, X) float32
-        The same numbers as the numpy expression (float32 operations in the same order).
+    ndarray (k, y, x) float32
+        The samples of :func:`warp_cubic`, then the float32 operations of the numpy
+        expression in its order.
     """
     ny, nx = reference.shape
+    row0, col0 = (int(v) for v in origin)
+    full_y, full_x = coeffs.shape[0] - 2 * PAD_PX, coeffs.shape[1] - 2 * PAD_PX
     if flow.shape != (ny, nx, 2) or basis.shape[1:] != (ny, nx) or out.shape != basis.shape:
         raise ValueError(
             f"shapes do not match: flow {flow.shape}, reference {reference.shape}, "
             f"basis {basis.shape}, out {out.shape}"
         )
-    _residual_products(coeffs, PAD_PX, flow, reference, basis, out)
+    if not (0 <= row0 <= full_y - ny and 0 <= col0 <= full_x - nx):
+        raise ValueError(
+            f"a ({ny}, {nx}) part at {origin} does not fit the ({full_y}, {full_x}) image"
+        )
+    _residual_products(coeffs, PAD_PX, flow, reference, basis, out, row0, col0)
     return out
 
 

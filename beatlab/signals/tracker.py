@@ -48,23 +48,30 @@ class FlowMeasurement(NamedTuple):
 
 
 def _refine_region(mask, background, window_px):
-    """Bounding box (slices) of the pixels whose flow is used, with a margin.
+    """Bounding box (slices) of the pixels whose flow is used, with a margin, and the box of
+    those pixels within it.
 
     The refinement only matters where the flow is read (the mask, and the background when it
     sets the rigid shift); a margin of three window SDs plus 8 px keeps the Gaussian windows
-    and the warp of those pixels identical to a whole-field refinement.
+    and the warp of those pixels identical to a whole-field refinement. The last step needs
+    only the pixels read (:class:`~beatlab.signals._flow_refine.LastStep`).
     """
     used = mask if background is None else (mask | background)
     if not used.any():
-        return (slice(None), slice(None))
+        return (slice(None), slice(None)), None
     margin = int(np.ceil(3 * window_px)) + 8
     rows = np.flatnonzero(used.any(axis=1))
     cols = np.flatnonzero(used.any(axis=0))
     ny, nx = used.shape
-    return (
+    region = (
         slice(max(rows[0] - margin, 0), min(rows[-1] + margin + 1, ny)),
         slice(max(cols[0] - margin, 0), min(cols[-1] + margin + 1, nx)),
     )
+    read = (
+        slice(rows[0] - region[0].start, rows[-1] + 1 - region[0].start),
+        slice(cols[0] - region[1].start, cols[-1] + 1 - region[1].start),
+    )
+    return region, read
 
 
 def _subtract_pairs(field: np.ndarray, pair: np.ndarray) -> None:
@@ -169,6 +176,10 @@ class FlowTracker:
     smoothing, but at the wrong gain. The floor is an upward bias that fades once the true
     displacement exceeds it (at 0.1 px peak amplitude, 1 nm noise: gain 1.03).
 
+    The refinement covers the box of the mask (and background) with a margin; its last step
+    covers only the box of the pixels read, which gives them the same numbers (when the
+    shift is estimated from the whole field, every pixel of the margin gets that step too).
+
     ``measure``/``displacement`` do not change the tracker, so frames may run in threads.
     NaN pixels of a frame are filled with the template (no apparent motion there) and left
     out of that frame's mean.
@@ -222,11 +233,12 @@ class FlowTracker:
         self.preset = preset
         self.refine_iterations = int(refine_iterations)
         self.window_px = float(window_px)
-        self._region = _refine_region(self.mask, self.background, self.window_px)
+        self._region, read = _refine_region(self.mask, self.background, self.window_px)
         prepare_frame_kernels()  # compiled here, before any worker forks: they inherit it
         self._basis: ReferenceBasis = prepare_reference(
-            _scale_to_grey(filled, self.scale)[self._region], window_px=self.window_px
-        )
+            _scale_to_grey(filled, self.scale)[self._region], window_px=self.window_px,
+            read=read,
+        )  # fmt: skip
 
     def measure(
         self,
@@ -286,9 +298,13 @@ class FlowTracker:
             self.template_u8, moving_u8, preset=self.preset, grid_px=self.coarse_grid_px
         )
         region = self._region
+        # the shift estimate reads the whole field when no background is given: every pixel
+        # of the region refined fully then; otherwise only the pixels read need the last step
+        estimating = estimate_shift or rigid_shift_px is None
         flow[region] = refine_with_basis(
-            self._basis, grey[region], flow[region], iterations=self.refine_iterations
-        )
+            self._basis, grey[region], flow[region], iterations=self.refine_iterations,
+            every_pixel=estimating and self.background is None,
+        )  # fmt: skip
         if not complete:
             flow[~finite] = np.nan
         estimate = (

@@ -428,3 +428,47 @@ def test_gaussian_window_is_opencv_gaussian_blur(shape, sigma):
         image, (size, size), sigmaX=sigma, sigmaY=sigma, borderType=cv2.BORDER_REFLECT
     )
     np.testing.assert_array_equal(gaussian_window(image, sigma), expected)
+
+
+def test_last_step_on_the_pixels_read_gives_their_whole_field_numbers():
+    """prepare_reference(read=...) makes the last Gauss-Newton step work only as far as the
+    pixels read need: there the flow is that of refining every pixel (the Gaussian windows
+    see the same products), elsewhere it keeps the step before; every_pixel refines all."""
+    from beatlab.signals._flow_refine import prepare_reference, refine_with_basis
+
+    opd, _ = make_opd(np.random.default_rng(4), n=96)
+    ref = opd.astype(np.float32)
+    mov = warp_exact(opd, contraction_field(1.5, n=96)).astype(np.float32)
+    coarse = np.zeros((96, 96, 2), np.float32)
+    read = (slice(30, 61), slice(25, 70))
+    whole = refine_with_basis(prepare_reference(ref, window_px=4.0), mov, coarse, iterations=2)
+    one = refine_with_basis(prepare_reference(ref, window_px=4.0), mov, coarse, iterations=1)
+    basis = prepare_reference(ref, window_px=4.0, read=read)
+    part = refine_with_basis(basis, mov, coarse, iterations=2)
+    np.testing.assert_array_equal(part[read], whole[read])
+    outside = np.ones((96, 96), bool)
+    outside[read] = False
+    np.testing.assert_array_equal(part[outside], one[outside])
+    np.testing.assert_array_equal(
+        refine_with_basis(basis, mov, coarse, iterations=2, every_pixel=True), whole
+    )
+    # reading every pixel, or none, needs no part
+    assert prepare_reference(ref, window_px=4.0, read=(slice(None), slice(None))).last_step is None
+    assert prepare_reference(ref, window_px=4.0, read=(slice(5, 5), slice(0, 9))).last_step is None
+
+
+def test_tracker_refines_fully_where_the_flow_is_read():
+    """Without a shift to estimate, the tracker's last step covers only the mask's box: the
+    flow at the mask is the same as when every pixel is refined (for a field-wide shift
+    estimate), bit for bit."""
+    opd, mask = make_opd(np.random.default_rng(6))
+    frame = warp_exact(opd, contraction_field(1.0))
+    small = np.zeros_like(mask)
+    small[40:80, 50:90] = mask[40:80, 50:90]  # a mask box well inside the refined region
+    tracker = FlowTracker(opd, small, pixel_size_um=PIXEL_UM)
+    assert tracker._basis.last_step is not None
+    zero = np.zeros(2)
+    part = tracker.measure(frame, rigid_shift_px=zero, estimate_shift=False).flow_px
+    every = tracker.measure(frame, rigid_shift_px=zero, estimate_shift=True).flow_px
+    np.testing.assert_array_equal(part[small], every[small])
+    assert not np.array_equal(part, every)  # elsewhere in the region: the step before

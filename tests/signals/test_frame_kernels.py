@@ -84,6 +84,30 @@ def test_project_cells_is_bincount_of_the_products():
     assert field_dot[-1] == 0.0
 
 
+def test_residual_products_of_a_part_are_that_part_of_the_whole():
+    """With an origin, the products over a part of the image are those of the whole image
+    at that part, bit for bit; a part that does not fit is refused."""
+    rng = np.random.default_rng(3)
+    ref = rng.normal(100, 20, (40, 50)).astype(np.float32)
+    coeffs = spline_coefficients(rng.normal(100, 20, (40, 50)).astype(np.float32))
+    flow = rng.normal(0, 1.5, (40, 50, 2)).astype(np.float32)
+    basis = rng.normal(0, 1, (4, 40, 50)).astype(np.float32)
+    whole = residual_products(coeffs, flow, ref, basis, np.empty_like(basis))
+    rows, cols = slice(7, 31), slice(12, 47)
+    part = residual_products(
+        coeffs, np.ascontiguousarray(flow[rows, cols]), np.ascontiguousarray(ref[rows, cols]),
+        np.ascontiguousarray(basis[:, rows, cols]), np.empty((4, 24, 35), np.float32),
+        origin=(7, 12),
+    )  # fmt: skip
+    np.testing.assert_array_equal(part, whole[:, rows, cols])
+    with pytest.raises(ValueError, match="does not fit"):
+        residual_products(
+            coeffs, np.ascontiguousarray(flow[rows, cols]), np.ascontiguousarray(ref[rows, cols]),
+            np.ascontiguousarray(basis[:, rows, cols]), np.empty((4, 24, 35), np.float32),
+            origin=(20, 12),
+        )  # fmt: skip
+
+
 def test_residual_products_and_update_are_the_numpy_step():
     rng = np.random.default_rng(8)
     ref = rng.normal(100, 20, (48, 56)).astype(np.float32)
