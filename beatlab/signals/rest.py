@@ -365,6 +365,29 @@ def _phase_shifts(job: tuple) -> np.ndarray:
     return np.array([_phase_shift(ref, low[t], window) for t in range(start, stop)]).reshape(-1, 2)
 
 
+#: Frames are aligned when a smoothed rigid shift exceeds this (low-resolution px).
+_DRIFT_PX = 0.1
+#: A round whose largest shift is below this share of :data:`_DRIFT_PX` ends the measuring:
+#: the references of the later rounds are averages of the same frames, not moved by the
+#: shifts of a recording that does not drift, so they would find no drift either (on 1,000
+#: frames, 0.05 s of phase correlation per round).
+_SETTLED_FRACTION = 0.5
+
+
+def _measured_shifts(pool, spans, ref: np.ndarray) -> np.ndarray:
+    """Every frame's rigid shift (T, 2) to ``ref``, low-resolution px: phase correlation,
+    smoothed in time, less its median."""
+    shifts = np.concatenate(pool.map(_phase_shifts, [(span, ref) for span in spans]))
+    # stage drift is slow: a running median takes out the estimation noise (and the brief
+    # apparent shift of a contraction), which would otherwise read as motion
+    shifts = _smooth_shifts(shifts)
+    # the reference is made of the frames themselves, so their true shifts to it have a
+    # median of 0; a common offset is a bias of the estimate (seen: phase correlation on
+    # 42 px low-resolution frames read every frame as shifted by the same 1.5 px, which each
+    # iteration then added again)
+    return shifts - np.median(shifts, axis=0)
+
+
 def _aligned_and_deviation(job: tuple) -> np.ndarray:
     """Frames of a span aligned (when drifting) and levelled, written into the shared stack
     ``_JOB["aligned"]``; returns their deviation (nm) from the reference."""
@@ -543,22 +566,21 @@ def estimate_rest_template(
             # the first reference: each pixel's median over time, pixels shared by the workers
             pixels = _spans(low[0].size, 2 * processes if processes > 1 else 1)
             ref = np.concatenate(pool.map(_median_span, pixels)).reshape(low.shape[1:])
+            settled = False  # no shift near the threshold: later rounds need not measure
             for iteration in range(3):
-                shifts = np.concatenate(pool.map(_phase_shifts, [(span, ref) for span in spans]))
-                # stage drift is slow: a running median takes out the estimation noise (and the
-                # brief apparent shift of a contraction), which would otherwise read as motion
-                shifts = _smooth_shifts(shifts)
-                # the reference is made of the frames themselves, so their true shifts to it
-                # have a median of 0; a common offset is a bias of the estimate (seen: phase
-                # correlation on 42 px low-resolution frames read every frame as shifted by
-                # the same 1.5 px, which each iteration then added again)
-                shifts -= np.median(shifts, axis=0)
-                # every frame is treated alike: shifting only some (even exactly, in Fourier
-                # space) changes their noise spectrum, a difference the activity axis would
-                # pick up
-                drifting = bool(np.max(np.hypot(shifts[:, 0], shifts[:, 1])) > 0.1)
-                if not drifting:
+                if settled:
                     shifts[:] = 0.0
+                    drifting = False
+                else:
+                    shifts = _measured_shifts(pool, spans, ref)
+                    largest = float(np.max(np.hypot(shifts[:, 0], shifts[:, 1])))
+                    # every frame is treated alike: shifting only some (even exactly, in
+                    # Fourier space) changes their noise spectrum, a difference the activity
+                    # axis would pick up
+                    drifting = largest > _DRIFT_PX
+                    settled = largest < _SETTLED_FRACTION * _DRIFT_PX
+                    if not drifting:
+                        shifts[:] = 0.0
                 leveller = PlaneLeveller(
                     ref, tilt=level_tilt, step=1, max_pixels=_REST_LEVEL_PIXELS
                 )

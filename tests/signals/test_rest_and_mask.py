@@ -207,3 +207,32 @@ def test_median_spans_join_into_numpys_median_over_time(monkeypatch):
     parts = [rest_module._median_span(span) for span in rest_module._spans(42, 4)]
     joined = np.concatenate(parts).reshape(6, 7)
     np.testing.assert_array_equal(joined, np.median(stack, axis=0))
+
+
+@pytest.mark.parametrize(
+    ("drift_um", "rounds"),
+    [((0.0, 0.0), 1), ((1.0, 0.5), 3)],  # still stage: measured once; drifting: every round
+)
+def test_shifts_are_measured_again_only_while_some_frame_moves(monkeypatch, drift_um, rounds):
+    """A round with every smoothed shift far below the alignment threshold ends the
+    measuring: the later references, averages of the same unshifted frames, find none."""
+    import beatlab.signals.rest as rest_module
+
+    calls = []
+    real = rest_module._measured_shifts
+
+    def counted(*args):
+        calls.append(1)
+        return real(*args)
+
+    monkeypatch.setattr(rest_module, "_measured_shifts", counted)
+    sim = simulate_recording(duration_s=6, fps=30, shape_px=(96, 96), rate_bpm=60,
+                             noise_nm=1.0, stage_drift_um=drift_um, rng=2)  # fmt: skip
+    rest = _rest(sim)
+    assert len(calls) == rounds
+    if rounds == 1:
+        assert not rest.shifts_px.any()
+        monkeypatch.setattr(rest_module, "_SETTLED_FRACTION", 0.0)  # measure every round
+        again = _rest(sim)
+        for name in ("template", "rest", "deviation", "shifts_px", "activity"):
+            np.testing.assert_array_equal(getattr(again, name), getattr(rest, name), name)
