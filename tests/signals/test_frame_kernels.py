@@ -13,7 +13,12 @@ from beatlab.signals._cubic_warp import (
     spline_coefficients,
     warp_cubic,
 )
-from beatlab.signals._frame_kernels import gather_frame, grey_and_uint8, project_cells
+from beatlab.signals._frame_kernels import (
+    gather_frame,
+    grey_and_uint8,
+    project_cells,
+    subtract_pair,
+)
 from beatlab.signals._level_kernel import subtract_plane
 
 
@@ -130,3 +135,17 @@ def test_residual_products_and_update_are_the_numpy_step():
     np.testing.assert_array_equal(gauss_newton_update(rows, rhs, flow.copy()), want)
     with pytest.raises(ValueError, match="shapes do not match"):
         gauss_newton_update(rows, rhs[:3], flow)
+
+
+def test_subtract_pair_is_numpys_broadcast_subtraction():
+    rng = np.random.default_rng(9)
+    field = rng.normal(0, 2, (30, 40, 2)).astype(np.float32)
+    field[3, 4, 1] = np.nan
+    pair = np.array([0.37, -1.25])
+    want = field - pair.astype(np.float32)
+    got = field.copy()
+    subtract_pair(got, pair)
+    np.testing.assert_array_equal(got, want)
+    strided = np.asfortranarray(field)  # not C-contiguous: numpy's own subtraction
+    subtract_pair(strided, pair)
+    np.testing.assert_array_equal(strided, want)
