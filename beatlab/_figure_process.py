@@ -125,8 +125,9 @@ class FigureProcess:
 
     Notes
     -----
-    Start it while the calling process is small and has no threads (before the analysis
-    imports and forks its own workers), use it once, and :meth:`close` it (or use it as a
+    Start it while the calling process is small and has no threads of its own (before the
+    analysis imports and forks its own workers; numpy and pandas may be imported, which saves
+    the process importing them again), use it once, and :meth:`close` it (or use it as a
     context manager): an unused process waits for its job until closed.
     """
 

@@ -336,3 +336,20 @@ def test_notebook_check_without_a_kernel_skips_tqdm_auto():
         [sys.executable, "-c", kernel], capture_output=True, text=True, timeout=120
     )
     assert out.stdout.split() == ["False", "True"]  # asked tqdm: no IPython shell running
+
+
+def test_analyze_imports_numpy_and_pandas_before_forking_the_figure_process(tmp_path):
+    """What both processes need is imported once, before the figure process is forked (it
+    then imports only the plotting side); the analysis itself is imported after."""
+    code = (
+        "import sys, beatlab._figure_process as f\n"
+        "class Recorder:\n"
+        "    def __init__(self, **kw):\n"
+        "        print(*(m in sys.modules for m in ('numpy', 'pandas', 'beatlab.pipeline')))\n"
+        "        raise SystemExit(0)\n"
+        "f.FigureProcess = Recorder\n"
+        "from beatlab.cli import main\n"
+        f"main(['analyze', 'x.tif', '--out', {str(tmp_path / 'out')!r}])\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert out.stdout.split() == ["True", "True", "False"], out.stderr
