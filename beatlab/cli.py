@@ -428,13 +428,17 @@ def _cmd_analyze(args) -> int:
     _check_replaceable(out)
     if args.no_figures:
         return _analyze(args, out, figure_process=None)
-    # numpy and pandas, which both processes need, are imported once, before the fork: the
-    # figure process then imports only the plotting side (whole analyses of 1,000 frames,
-    # alternating, medians of six: 6.22 -> 6.09 s, 11.40 -> 11.04 s of CPU). numpy's
-    # OpenBLAS thread is stopped and restarted around a fork by OpenBLAS itself.
+    # numpy, pandas and beatlab.io (tifffile: beatlab.plots writes through beatlab.io), which
+    # both processes need, are imported once, before the fork: the figure process then
+    # imports only the plotting side (whole analyses of 1,000 frames, alternating, medians of
+    # six, numpy and pandas: 6.22 -> 6.09 s, 11.40 -> 11.04 s of CPU; beatlab.io spares it
+    # importing tifffile, 0.05 s in ``python -X importtime``). numpy's OpenBLAS thread is
+    # stopped and restarted
+    # around a fork by OpenBLAS itself.
     import numpy  # noqa: F401
     import pandas  # noqa: F401
 
+    import beatlab.io  # noqa: F401
     from beatlab._figure_process import FigureProcess
 
     # forked now, while this process is small: it loads matplotlib on the other core while

@@ -345,11 +345,12 @@ def test_analyze_imports_numpy_and_pandas_before_forking_the_figure_process(tmp_
         "import sys, beatlab._figure_process as f\n"
         "class Recorder:\n"
         "    def __init__(self, **kw):\n"
-        "        print(*(m in sys.modules for m in ('numpy', 'pandas', 'beatlab.pipeline')))\n"
+        "        print(*(m in sys.modules for m in ('numpy', 'pandas', 'tifffile',\n"
+        "                                           'beatlab.pipeline')))\n"
         "        raise SystemExit(0)\n"
         "f.FigureProcess = Recorder\n"
         "from beatlab.cli import main\n"
         f"main(['analyze', 'x.tif', '--out', {str(tmp_path / 'out')!r}])\n"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
-    assert out.stdout.split() == ["True", "True", "False"], out.stderr
+    assert out.stdout.split() == ["True", "True", "True", "False"], out.stderr
