@@ -433,8 +433,7 @@ def _cmd_analyze(args) -> int:
     # imports only the plotting side (whole analyses of 1,000 frames, alternating, medians of
     # six, numpy and pandas: 6.22 -> 6.09 s, 11.40 -> 11.04 s of CPU; beatlab.io spares it
     # importing tifffile, 0.05 s in ``python -X importtime``). numpy's OpenBLAS thread is
-    # stopped and restarted
-    # around a fork by OpenBLAS itself.
+    # stopped and restarted around a fork by OpenBLAS itself.
     import numpy  # noqa: F401
     import pandas  # noqa: F401
 
