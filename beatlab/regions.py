@@ -90,9 +90,12 @@ def _correlation_matrix(traces):
 
     A constant row correlates with nothing (its entries are 0).
     """
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows: they correlate with none
-        centred = traces - np.nanmedian(traces, axis=1, keepdims=True)
+    if np.isnan(traces).any():
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows: correlate with none
+            centred = traces - np.nanmedian(traces, axis=1, keepdims=True)
+    else:  # the same medians; numpy's nanmedian goes row by row (0.03 s for 481 x 1,000)
+        centred = traces - np.median(traces, axis=1, keepdims=True)
     centred = np.where(np.isfinite(centred), centred, 0.0)
     centred = centred - centred.mean(axis=1, keepdims=True)
     norms = np.sqrt(np.sum(centred**2, axis=1))

@@ -236,3 +236,22 @@ def test_split_regions_keeps_one_rhythm_and_inactive_parts_whole():
     assert set(np.unique(out)) == {1}
     labels[:, :2] = 0
     assert (split_regions(labels, act, block_px=4, min_area_px=64)[:, :2] == 0).all()
+
+
+def test_correlation_matrix_is_pearsons_and_counts_nan_frames_as_the_median():
+    """Reference: numpy's corrcoef on rows without NaN; a NaN frame counts as the row's
+    median, an all-NaN or constant row correlates with nothing."""
+    from beatlab.regions import _correlation_matrix
+
+    rng = np.random.default_rng(12)
+    traces = rng.normal(size=(6, 200)).cumsum(axis=1)
+    np.testing.assert_allclose(_correlation_matrix(traces), np.corrcoef(traces), atol=1e-12)
+    gappy = traces.copy()
+    gappy[2, 10:20] = np.nan
+    gappy[4] = np.nan
+    filled = traces.copy()
+    filled[2, 10:20] = np.median(traces[2, np.r_[0:10, 20:200]])
+    got = _correlation_matrix(gappy)
+    np.testing.assert_allclose(got[2, [0, 1, 3, 5]], np.corrcoef(filled)[2, [0, 1, 3, 5]],
+                               atol=1e-12)  # fmt: skip
+    assert not got[4].any() and not got[:, 4].any()
