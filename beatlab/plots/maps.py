@@ -343,10 +343,18 @@ def _template_panel(ax, analysis, geometry):
     _frame_axes(ax, geometry, ylabel=True)
 
 
+def _field_shaped_message(ax, geometry, text: str) -> None:
+    """A text panel in the frame's shape, so that its title lines up with the map panels'
+    (a panel without an image took the figure's whole height, its title at the top)."""
+    ny, nx = geometry.shape_px
+    ax.set_box_aspect(ny / nx)
+    message_panel(ax, text)
+
+
 def _displacement_panel(ax, analysis, table, geometry):
     amp, part = _grid(table, "displacement", "amplitude", geometry)
     if not len(part):
-        message_panel(ax, "no beats detected:\nno displacement map")
+        _field_shaped_message(ax, geometry, "no beats detected:\nno displacement map")
         ax.set_title("peak displacement")
         return
     listed = _listed(table, "not_beating", geometry)
@@ -390,7 +398,7 @@ def _delay_panel(ax, analysis, table, geometry):
     _, message, title, _ = _delay_view(analysis, geometry)
     delay, part = _grid(table, "onset_delay", "delay", geometry)
     if not len(part):
-        message_panel(ax, message)
+        _field_shaped_message(ax, geometry, message)
         ax.set_title(title)
         return
     im = ax.imshow(

@@ -293,6 +293,10 @@ def test_unresolved_propagation_draws_no_delay_colours(ead):
     assert any("propagation not resolved" in " ".join(t.get_text().split()) for t in delay.texts)
     colorbars = [ax for ax in fig.axes if ax.get_label() == "<colorbar>"]
     assert len(colorbars) == 2  # template and displacement only
+    # the text panel has the frame's shape: its title lines up with the map panels' titles
+    fig.canvas.draw()
+    tops = [ax.title.get_window_extent().y0 for ax in (template, amplitude, delay)]
+    assert max(tops) - min(tops) < 2.0  # display px
     (image,) = _by_gid(amplitude, "amplitude")
     beating = ead.maps["beating"]
     expected = np.where(beating, ead.maps["peak_displacement_um"], np.nan)
