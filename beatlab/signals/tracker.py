@@ -105,6 +105,9 @@ class FlowTracker:
         Explicit ``(lo_nm, hi_nm)`` mapping; overrides ``percentiles``.
     background : ndarray of bool, shape (Y, X), optional
         Stationary textured pixels for the rigid shift (:func:`estimate_rigid_shift`).
+    also_read : ndarray of bool, shape (Y, X), optional
+        Pixels outside the mask whose flow the caller reads too (a user's region labels):
+        they are refined like the mask's.
 
     Attributes
     ----------
@@ -185,6 +188,7 @@ class FlowTracker:
         percentiles: tuple[float, float] = (0.5, 99.5),
         scale: tuple[float, float] | None = None,
         background: np.ndarray | None = None,
+        also_read: np.ndarray | None = None,
     ) -> None:
         template = check_image("template_nm", template_nm)
         mask_arr = check_mask("mask", mask, template.shape)
@@ -219,7 +223,12 @@ class FlowTracker:
         self.preset = preset
         self.refine_iterations = int(refine_iterations)
         self.window_px = float(window_px)
-        self._region, read = _refine_region(self.mask, self.background, self.window_px)
+        read_too = (
+            self.mask
+            if also_read is None
+            else self.mask | check_mask("also_read", also_read, template.shape)
+        )
+        self._region, read = _refine_region(read_too, self.background, self.window_px)
         prepare_frame_kernels()  # compiled here, before any worker forks: they inherit it
         self._basis: ReferenceBasis = prepare_reference(
             _scale_to_grey(filled, self.scale)[self._region], window_px=self.window_px,

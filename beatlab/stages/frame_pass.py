@@ -362,6 +362,7 @@ class _FrameReducer:
                     coarse_grid_px=f.coarse_grid_px,
                     scale=reference.flow_scale,
                     background=reference.rigid_pixels,
+                    also_read=reference.labels > 0,  # a user's regions may leave the mask
                 ),
             )
             for tmpl in segments

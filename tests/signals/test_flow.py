@@ -472,3 +472,27 @@ def test_tracker_refines_fully_where_the_flow_is_read():
     every = tracker.measure(frame, rigid_shift_px=zero, estimate_shift=True).flow_px
     np.testing.assert_array_equal(part[small], every[small])
     assert not np.array_equal(part, every)  # elsewhere in the region: the step before
+
+
+def test_pixels_read_outside_the_mask_are_refined_too():
+    """A user's region may leave the cell mask: with also_read its pixels get the full
+    refinement (the numbers of refining every pixel), not the raw coarse flow they had
+    outside the mask's refined box."""
+    opd, _ = make_opd(np.random.default_rng(7))
+    frame = warp_exact(opd, contraction_field(1.0))
+    mask = np.zeros(opd.shape, bool)
+    mask[40:60, 40:60] = True
+    roi = np.zeros(opd.shape, bool)
+    roi[95:110, 95:110] = True  # beyond the mask's box and its 20 px margin
+    zero = np.zeros(2)
+    plain = FlowTracker(opd, mask, pixel_size_um=PIXEL_UM)
+    wide = FlowTracker(opd, mask, pixel_size_um=PIXEL_UM, also_read=roi)
+    coarse = plain.measure(frame, rigid_shift_px=zero, estimate_shift=False).flow_px
+    part = wide.measure(frame, rigid_shift_px=zero, estimate_shift=False).flow_px
+    every = wide.measure(frame, rigid_shift_px=zero, estimate_shift=True).flow_px
+    np.testing.assert_array_equal(part[roi | mask], every[roi | mask])
+    # the mask's own flow as before, within 0.001 px: the box's edge is elsewhere
+    np.testing.assert_allclose(part[mask], coarse[mask], rtol=0, atol=1e-3)
+    assert not np.array_equal(part[roi], coarse[roi])
+    with pytest.raises(InputError, match="also_read must be a boolean"):
+        FlowTracker(opd, mask, pixel_size_um=PIXEL_UM, also_read=roi.astype(int))
