@@ -7,7 +7,8 @@ expression ``(image - lo) * (255 / (hi - lo))``, ``np.rint``, ``np.clip(0, 255)`
 (tests/signals/test_frame_kernels.py compares them bit for bit), without a dozen passes over
 the frame. :func:`gather_frame`, for the per-frame pass: a frame's field and OPD difference at
 the used pixels, non-finite as 0; :func:`project_cells`: their projections summed per cell,
-as ``np.bincount`` sums them.
+as ``np.bincount`` sums them. :func:`subtract_pair` needs no compiling: one numpy pass over
+the field seen as complex numbers.
 """
 
 from __future__ import annotations

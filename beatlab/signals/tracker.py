@@ -21,7 +21,12 @@ from beatlab.signals._flow_checks import (
     check_scale,
     check_window,
 )
-from beatlab.signals._flow_refine import ReferenceBasis, prepare_reference, refine_with_basis
+from beatlab.signals._flow_refine import (
+    ReferenceBasis,
+    prepare_reference,
+    refine_with_basis,
+    window_reach_px,
+)
 from beatlab.signals._frame_kernels import grey_and_uint8, prepare_frame_kernels, subtract_pair
 from beatlab.signals.flow import (
     _PRESETS,
@@ -52,14 +57,15 @@ def _refine_region(mask, background, window_px):
     those pixels within it.
 
     The refinement only matters where the flow is read (the mask, and the background when it
-    sets the rigid shift); a margin of three window SDs plus 8 px keeps the Gaussian windows
-    and the warp of those pixels identical to a whole-field refinement. The last step needs
-    only the pixels read (:class:`~beatlab.signals._flow_refine.LastStep`).
+    sets the rigid shift); a margin of the Gaussian window's reach plus 8 px keeps the flow of
+    those pixels within ~0.001 px of a whole-field refinement (the first step's windows near
+    the margin's edge see its mirror image; tests/signals/test_flow.py moves that edge). The
+    last step needs only the pixels read (:class:`~beatlab.signals._flow_refine.LastStep`).
     """
     used = mask if background is None else (mask | background)
     if not used.any():
         return (slice(None), slice(None)), None
-    margin = int(np.ceil(3 * window_px)) + 8
+    margin = window_reach_px(window_px) + 8
     rows = np.flatnonzero(used.any(axis=1))
     cols = np.flatnonzero(used.any(axis=0))
     ny, nx = used.shape
